@@ -1,0 +1,6 @@
+//! signfold: signed-particle Wigner Monte Carlo for a few interacting particles.
+pub mod job;
+pub mod orbitals;
+pub mod potential;
+pub mod results;
+pub mod units;
