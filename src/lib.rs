@@ -1,4 +1,5 @@
 //! signfold: signed-particle Wigner Monte Carlo for a few interacting particles.
+pub mod grid;
 pub mod job;
 pub mod orbitals;
 pub mod potential;
