@@ -5,7 +5,11 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 #[derive(Parser)]
-#[command(name = "signfold", version, about = "Signed-particle Wigner Monte Carlo for a few interacting particles")]
+#[command(
+    name = "signfold",
+    version,
+    about = "Signed-particle Wigner Monte Carlo for a few interacting particles"
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
