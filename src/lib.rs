@@ -1,8 +1,10 @@
 //! signfold: signed-particle Wigner Monte Carlo for a few interacting particles.
 pub mod grid;
+pub mod initial;
 pub mod job;
 pub mod kernel;
 pub mod orbitals;
+pub mod particles;
 pub mod potential;
 pub mod results;
 pub mod rng;
