@@ -40,7 +40,10 @@ pub fn permutations(n: usize) -> Vec<(Vec<usize>, f64)> {
     rec(&mut Vec::new(), &mut vec![false; n], &mut out);
     out.into_iter()
         .map(|p| {
-            let inversions = (0..n).flat_map(|i| (i + 1..n).map(move |j| (i, j))).filter(|&(i, j)| p[i] > p[j]).count();
+            let inversions = (0..n)
+                .flat_map(|i| (i + 1..n).map(move |j| (i, j)))
+                .filter(|&(i, j)| p[i] > p[j])
+                .count();
             let s = if inversions % 2 == 0 { 1.0 } else { -1.0 };
             (p, s)
         })
@@ -51,7 +54,10 @@ pub fn permutations(n: usize) -> Vec<(Vec<usize>, f64)> {
 /// permutations. A plain sum of products: Ryser's 2^n formula cancels large terms where
 /// W is small and loses the exchange symmetry to round-off, so it is not used for small n.
 pub fn permanent(m: &[Complex64], n: usize, perms: &[(Vec<usize>, f64)]) -> Complex64 {
-    perms.iter().map(|(tau, _)| (0..n).map(|i| m[i * n + tau[i]]).product::<Complex64>()).sum()
+    perms
+        .iter()
+        .map(|(tau, _)| (0..n).map(|i| m[i * n + tau[i]]).product::<Complex64>())
+        .sum()
 }
 
 fn determinant(m: &[Complex64], n: usize) -> Complex64 {
@@ -78,7 +84,9 @@ pub struct NBodyWigner {
 impl NBodyWigner {
     pub fn new(orbitals: &[Gaussian], stats: Statistics) -> Result<Self> {
         let n = orbitals.len();
-        let s: Vec<Complex64> = (0..n * n).map(|ab| overlap(&orbitals[ab / n], &orbitals[ab % n])).collect();
+        let s: Vec<Complex64> = (0..n * n)
+            .map(|ab| overlap(&orbitals[ab / n], &orbitals[ab % n]))
+            .collect();
         let fact: f64 = (1..=n).map(|i| i as f64).product();
         let c2 = match stats {
             Statistics::Distinguishable => 1.0,
@@ -110,18 +118,35 @@ impl NBodyWigner {
             Statistics::Distinguishable => vec![((0..n).collect(), 1.0)],
             _ => permutations(n),
         };
-        let env: Vec<Envelope> = (0..n * n).map(|ab| envelope(&orbitals[ab / n], &orbitals[ab % n])).collect();
+        let env: Vec<Envelope> = (0..n * n)
+            .map(|ab| envelope(&orbitals[ab / n], &orbitals[ab % n]))
+            .collect();
         let mut components = Vec::new();
         let mut weights = Vec::new();
         for (si, (sigma, _)) in perms.iter().enumerate() {
             for (ti, (tau, _)) in perms.iter().enumerate() {
                 components.push((si, ti));
-                weights.push((0..n).map(|i| env[sigma[i] * n + tau[i]].mass()).product::<f64>());
+                weights.push(
+                    (0..n)
+                        .map(|i| env[sigma[i] * n + tau[i]].mass())
+                        .product::<f64>(),
+                );
             }
         }
         let z = weights.iter().sum();
-        let picker = WeightedAliasIndex::new(weights).map_err(|e| anyhow::anyhow!("initial state proposal: {e}"))?;
-        Ok(NBodyWigner { n, stats, orbitals: orbitals.to_vec(), c2, perms, env, components, picker, z })
+        let picker = WeightedAliasIndex::new(weights)
+            .map_err(|e| anyhow::anyhow!("initial state proposal: {e}"))?;
+        Ok(NBodyWigner {
+            n,
+            stats,
+            orbitals: orbitals.to_vec(),
+            c2,
+            perms,
+            env,
+            components,
+            picker,
+            z,
+        })
     }
 
     /// Cross-Wigner values W_ab(x_i, k_i), index (i·n + a)·n + b.
@@ -131,7 +156,12 @@ impl NBodyWigner {
         for i in 0..n {
             for a in 0..n {
                 for b in 0..n {
-                    out.push(cross_wigner(&self.orbitals[a], &self.orbitals[b], x[i], k[i]));
+                    out.push(cross_wigner(
+                        &self.orbitals[a],
+                        &self.orbitals[b],
+                        x[i],
+                        k[i],
+                    ));
                 }
             }
         }
@@ -171,7 +201,9 @@ impl NBodyWigner {
         let mut g = 0.0;
         for &(si, ti) in &self.components {
             let (sigma, tau) = (&self.perms[si].0, &self.perms[ti].0);
-            g += (0..n).map(|i| w[(i * n + sigma[i]) * n + tau[i]].norm()).product::<f64>();
+            g += (0..n)
+                .map(|i| w[(i * n + sigma[i]) * n + tau[i]].norm())
+                .product::<f64>();
         }
         g / self.z
     }
@@ -225,9 +257,26 @@ pub fn sum_draws(w: &NBodyWigner, seed: u64, from: u64, to: u64) -> DrawSums {
             let (mut x, mut k) = (vec![0.0; n], vec![0.0; n]);
             let r = w.draw(&mut draw_stream(seed, d), &mut x, &mut k);
             let q = (r * WEIGHT_SCALE).round() as i128;
-            DrawSums { abs: q.abs(), net: q }
+            DrawSums {
+                abs: q.abs(),
+                net: q,
+            }
         })
-        .reduce(DrawSums::default, |a, b| DrawSums { abs: a.abs + b.abs, net: a.net + b.net })
+        .reduce(DrawSums::default, |a, b| DrawSums {
+            abs: a.abs + b.abs,
+            net: a.net + b.net,
+        })
+}
+
+/// What pass 2 needs from pass 1 and the job.
+#[derive(Clone, Copy, Debug)]
+pub struct EmitPlan {
+    pub seed: u64,
+    /// Global Σ|r_d| in fixed point.
+    pub abs_sum: i128,
+    /// Target particle count.
+    pub target: u64,
+    pub groups: u32,
 }
 
 /// Where an emitted particle may live: the domain and the momentum range.
@@ -241,14 +290,17 @@ pub trait Admit: Sync {
 /// particles dropped because they fell outside the domain or the momentum range.
 pub fn emit(
     w: &NBodyWigner,
-    seed: u64,
+    plan: &EmitPlan,
     from: u64,
     to: u64,
-    abs_sum: i128,
-    target: u64,
-    groups: u32,
     admit: &dyn Admit,
 ) -> (Store, u64) {
+    let EmitPlan {
+        seed,
+        abs_sum,
+        target,
+        groups,
+    } = *plan;
     use rayon::prelude::*;
     let n = w.n();
     let per_unit = target as f64 / (abs_sum as f64 / WEIGHT_SCALE);
@@ -292,12 +344,26 @@ mod tests {
     use super::*;
 
     fn pair() -> Vec<Gaussian> {
-        vec![Gaussian { x0: -3.0, k0: 0.8, sigma: 1.2 }, Gaussian { x0: 2.0, k0: -0.5, sigma: 1.7 }]
+        vec![
+            Gaussian {
+                x0: -3.0,
+                k0: 0.8,
+                sigma: 1.2,
+            },
+            Gaussian {
+                x0: 2.0,
+                k0: -0.5,
+                sigma: 1.7,
+            },
+        ]
     }
 
     #[test]
     fn permanent_and_permutations() {
-        let m: Vec<Complex64> = [1.0, 2.0, 3.0, 4.0].iter().map(|&v| Complex64::new(v, 0.0)).collect();
+        let m: Vec<Complex64> = [1.0, 2.0, 3.0, 4.0]
+            .iter()
+            .map(|&v| Complex64::new(v, 0.0))
+            .collect();
         assert!((permanent(&m, 2, &permutations(2)) - Complex64::new(10.0, 0.0)).norm() < 1e-12);
         let p = permutations(3);
         assert_eq!(p.len(), 6);
@@ -308,7 +374,11 @@ mod tests {
     /// particles (antisymmetry/symmetry of ψ), by quadrature over the 4-d phase space.
     #[test]
     fn two_body_wigner_is_normalised_and_exchange_symmetric() {
-        for stats in [Statistics::Fermion, Statistics::Boson, Statistics::Distinguishable] {
+        for stats in [
+            Statistics::Fermion,
+            Statistics::Boson,
+            Statistics::Distinguishable,
+        ] {
             let w = NBodyWigner::new(&pair(), stats).unwrap();
             let (nx, nk) = (56, 44);
             let (x0, x1, k0, k1) = (-10.5, 11.0, -3.0, 3.0);
@@ -324,7 +394,10 @@ mod tests {
                             total += v;
                             if stats != Statistics::Distinguishable && (a * 7 + c) % 97 == 0 {
                                 let v2 = w.value(&[x[1], x[0]], &[k[1], k[0]]);
-                                assert!((v - v2).abs() < 1e-12 * (1.0 + v.abs()), "{stats:?} {x:?} {k:?}: {v} vs {v2}");
+                                assert!(
+                                    (v - v2).abs() < 1e-12 * (1.0 + v.abs()),
+                                    "{stats:?} {x:?} {k:?}: {v} vs {v2}"
+                                );
                             }
                         }
                     }
@@ -337,8 +410,15 @@ mod tests {
 
     #[test]
     fn identical_fermion_orbitals_are_refused() {
-        let o = Gaussian { x0: 1.0, k0: 0.2, sigma: 2.0 };
-        let e = NBodyWigner::new(&[o, o], Statistics::Fermion).err().unwrap().to_string();
+        let o = Gaussian {
+            x0: 1.0,
+            k0: 0.2,
+            sigma: 2.0,
+        };
+        let e = NBodyWigner::new(&[o, o], Statistics::Fermion)
+            .err()
+            .unwrap()
+            .to_string();
         assert!(e.contains("Slater determinant vanishes"), "{e}");
     }
 }

@@ -98,7 +98,7 @@ impl KernelTable {
                 fft.process(&mut buf);
                 // V(M) = (−1)^M Im F[M] / (ħ n), F the forward DFT (see module docs).
                 let v = |m: usize| -> f64 {
-                    let sgn = if m % 2 == 0 { 1.0 } else { -1.0 };
+                    let sgn = if m.is_multiple_of(2) { 1.0 } else { -1.0 };
                     sgn * buf[m].im / (HBAR * n as f64)
                 };
                 let mut row = vec![0.0; width];

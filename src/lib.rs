@@ -1,11 +1,31 @@
 //! signfold: signed-particle Wigner Monte Carlo for a few interacting particles.
+#![allow(clippy::needless_range_loop)] // index loops mirror the equations (particle i, pair i<j)
+pub mod advance;
+pub mod annihilate;
+pub mod check;
+pub mod comm;
 pub mod grid;
 pub mod initial;
 pub mod job;
 pub mod kernel;
+pub mod observe;
 pub mod orbitals;
 pub mod particles;
 pub mod potential;
 pub mod results;
 pub mod rng;
+pub mod run;
+pub mod setup;
 pub mod units;
+
+/// An error already reported by another rank (rank 0): exit non-zero without a message.
+#[derive(Debug)]
+pub struct SilentError;
+
+impl std::fmt::Display for SilentError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        write!(f, "failed on another rank")
+    }
+}
+
+impl std::error::Error for SilentError {}

@@ -1,8 +1,13 @@
 //! The `signfold` command line: thin wrappers around the library.
+#![allow(clippy::needless_range_loop)]
 
 use clap::{Parser, Subcommand};
 use std::path::PathBuf;
 use std::process::ExitCode;
+
+use signfold::comm::{Comm, World};
+use signfold::setup::Setup;
+use signfold::{check, job, run};
 
 #[derive(Parser)]
 #[command(
@@ -82,17 +87,106 @@ enum Command {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
-    match dispatch(cli.command) {
+    let Some(universe) = mpi::initialize() else {
+        eprintln!("signfold: error: MPI could not be initialised");
+        return ExitCode::from(2);
+    };
+    let world = World::new(universe.world());
+    let root = world.is_root();
+    match dispatch(cli.command, &world) {
         Ok(code) => code,
         Err(e) => {
-            eprintln!("signfold: error: {e:#}");
+            // Collective errors are printed once, by rank 0; a rank-local error is printed
+            // by its rank.
+            if e.downcast_ref::<signfold::SilentError>().is_none()
+                && (root || world.size() == 1 || !is_collective(&e))
+            {
+                if world.size() > 1 && !root {
+                    eprintln!("signfold: error (rank {}): {e:#}", world.rank());
+                } else {
+                    eprintln!("signfold: error: {e:#}");
+                }
+            }
             ExitCode::from(2)
         }
     }
 }
 
-fn dispatch(cmd: Command) -> anyhow::Result<ExitCode> {
+/// Errors every rank reaches together (job validation, collective checks).
+fn is_collective(e: &anyhow::Error) -> bool {
+    e.downcast_ref::<Collective>().is_some()
+}
+
+/// Marks an error that all ranks raise identically.
+#[derive(Debug)]
+struct Collective(String);
+
+impl std::fmt::Display for Collective {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.0)
+    }
+}
+
+impl std::error::Error for Collective {}
+
+fn collective<T>(r: anyhow::Result<T>) -> anyhow::Result<T> {
+    r.map_err(|e| Collective(format!("{e:#}")).into())
+}
+
+fn with_particles(mut set: Vec<String>, particles: Option<u64>) -> Vec<String> {
+    if let Some(n) = particles {
+        set.push(format!("numerics.particles={n}"));
+    }
+    set
+}
+
+fn configure_threads(threads: Option<usize>) -> anyhow::Result<()> {
+    let local_ranks: usize = std::env::var("OMPI_COMM_WORLD_LOCAL_SIZE")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(1);
+    let cores = std::thread::available_parallelism()
+        .map(|n| n.get())
+        .unwrap_or(1);
+    let n = threads.unwrap_or((cores / local_ranks.max(1)).max(1));
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(n)
+        .build_global()
+        .map_err(|e| anyhow::anyhow!("thread pool: {e}"))
+}
+
+fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
     match cmd {
+        Command::Check {
+            job,
+            set,
+            particles,
+        } => {
+            configure_threads(None)?;
+            let loaded = collective(job::load(&job, &with_particles(set, particles)))?;
+            let setup = collective(Setup::new(&loaded))?;
+            let text = collective(check::report(&setup, world.size()))?;
+            if world.is_root() {
+                print!("{text}");
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Run {
+            job,
+            out,
+            set,
+            particles,
+            force,
+            until,
+            threads,
+        } => {
+            configure_threads(threads)?;
+            let loaded = collective(job::load(&job, &with_particles(set, particles)))?;
+            let setup = collective(Setup::new(&loaded))?;
+            let opts = run::RunOptions { out, force, until };
+            collective(run::run(&setup, &opts, world))?;
+            Ok(ExitCode::SUCCESS)
+        }
         _ => anyhow::bail!("not implemented yet"),
     }
 }

@@ -16,7 +16,10 @@ pub struct Store {
 
 impl Store {
     pub fn new(n: usize) -> Self {
-        Store { n, ..Default::default() }
+        Store {
+            n,
+            ..Default::default()
+        }
     }
 
     pub fn with_capacity(n: usize, cap: usize) -> Self {
@@ -108,8 +111,10 @@ impl Store {
         for rec in words.chunks_exact(2 + 2 * n) {
             self.id.push(rec[0]);
             self.sign.push(rec[1] as i64 as i8);
-            self.x.extend(rec[2..2 + n].iter().map(|&b| f64::from_bits(b)));
-            self.k.extend(rec[2 + n..].iter().map(|&b| f64::from_bits(b)));
+            self.x
+                .extend(rec[2..2 + n].iter().map(|&b| f64::from_bits(b)));
+            self.k
+                .extend(rec[2 + n..].iter().map(|&b| f64::from_bits(b)));
         }
     }
 

@@ -220,14 +220,14 @@ fn read_table(path: &Path) -> Result<(Vec<f64>, Vec<f64>)> {
             Ok(v)
         };
         let (x, u) = (parse(cols[0])?, parse(cols[1])?);
-        if let Some(&last) = xs.last() {
-            if x <= last {
-                bail!(
-                    "{}:{}: x must increase ({x} after {last})",
-                    path.display(),
-                    ln + 1
-                );
-            }
+        if let Some(&last) = xs.last()
+            && x <= last
+        {
+            bail!(
+                "{}:{}: x must increase ({x} after {last})",
+                path.display(),
+                ln + 1
+            );
         }
         xs.push(x);
         us.push(u);

@@ -187,7 +187,7 @@ impl ResultFile {
             let data = ds
                 .read_raw::<f64>()
                 .map_err(|e| anyhow!("{shown}: dataset `{name}` cannot be read ({e})"))?;
-            if shape.len() >= 1 && shape[0] == nt && (shape.len() > 1 || is_series_name(&name)) {
+            if !shape.is_empty() && shape[0] == nt && (shape.len() > 1 || is_series_name(&name)) {
                 out.series.insert(
                     name,
                     Series {

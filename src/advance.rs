@@ -1,0 +1,283 @@
+//! Event-by-event flight of every particle between two synchronisation times (physics.md §2).
+//!
+//! Between events a particle follows the exact classical flight under the drift forces
+//! (dx_i/dt = ħk_i/m, dk_i/dt = −U_f'(x_i)/ħ). Generation events come at rate
+//! Γ(z) = Σ_i γ₁(x_i) + Σ_{i<j} γ₂(x_i − x_j), sampled exactly by thinning: candidates at
+//! rate Γ_max (a bound from the tables), each accepted with probability Γ(z)/Γ_max. At an
+//! event the parent continues; a particle of sign s is added at k + q and one of sign −s at
+//! k − q, where q = MΔk on one particle (one-body term) or (+MΔk, −MΔk) on a pair. Children
+//! start at their birth time and fly to the end of the interval with their own stream.
+//! Everything a particle does depends only on its own state, identity and the interval.
+
+use crate::job::Boundary;
+use crate::particles::Store;
+use crate::rng::{self, tag};
+use crate::setup::Setup;
+use rand::Rng;
+use rayon::prelude::*;
+
+/// Signed counts of particles that left during an interval, per error group.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Tally {
+    pub absorbed_left: Vec<i64>,
+    pub absorbed_right: Vec<i64>,
+    /// Removed because |k| exceeded k_max.
+    pub lost_momentum: Vec<i64>,
+    /// Accepted generation events and thinning candidates.
+    pub events: u64,
+    pub candidates: u64,
+}
+
+impl Tally {
+    pub fn new(groups: usize) -> Self {
+        Tally {
+            absorbed_left: vec![0; groups],
+            absorbed_right: vec![0; groups],
+            lost_momentum: vec![0; groups],
+            events: 0,
+            candidates: 0,
+        }
+    }
+    pub fn add(&mut self, o: &Tally) {
+        for (a, b) in self.absorbed_left.iter_mut().zip(&o.absorbed_left) {
+            *a += b;
+        }
+        for (a, b) in self.absorbed_right.iter_mut().zip(&o.absorbed_right) {
+            *a += b;
+        }
+        for (a, b) in self.lost_momentum.iter_mut().zip(&o.lost_momentum) {
+            *a += b;
+        }
+        self.events += o.events;
+        self.candidates += o.candidates;
+    }
+}
+
+/// A particle in flight: coordinates, identity, sign, and the time it has reached (fs from
+/// the start of the interval).
+struct Flying {
+    x: Vec<f64>,
+    k: Vec<f64>,
+    id: u64,
+    sign: i8,
+    tau: f64,
+}
+
+enum Fate {
+    Inside,
+    Left,
+    Right,
+}
+
+/// Apply the boundary to coordinate (x, k). Reflecting folds the straight flight back
+/// (exact for free flight); periodic wraps.
+#[inline]
+fn boundary(setup: &Setup, x: &mut f64, k: &mut f64) -> Fate {
+    let (lo, hi) = (setup.lo, setup.hi);
+    if *x >= lo && *x < hi {
+        return Fate::Inside;
+    }
+    let w = hi - lo;
+    match setup.boundary {
+        Boundary::Absorbing => {
+            if *x < lo {
+                Fate::Left
+            } else {
+                Fate::Right
+            }
+        }
+        Boundary::Periodic => {
+            *x = lo + (*x - lo).rem_euclid(w);
+            if *x >= hi {
+                *x = lo;
+            }
+            Fate::Inside
+        }
+        Boundary::Reflecting => {
+            let m = (*x - lo).rem_euclid(2.0 * w);
+            if m > w {
+                *x = lo + 2.0 * w - m;
+                *k = -*k;
+            } else {
+                *x = lo + m;
+            }
+            if *x >= hi {
+                *x = hi - 1e-12 * w;
+            }
+            Fate::Inside
+        }
+    }
+}
+
+/// Γ(z) and, when `pick` is given (a uniform in [0, Γ)), the chosen term: one-body term of
+/// particle i → (i, None); pair (i, j) → (i, Some(j)).
+#[inline]
+fn rates(
+    setup: &Setup,
+    x: &[f64],
+    pick: Option<f64>,
+) -> (f64, Option<(usize, Option<usize>, usize)>) {
+    let n = x.len();
+    let mut total = 0.0;
+    if let Some(t) = &setup.table1 {
+        for (i, &xi) in x.iter().enumerate() {
+            if let Some(c) = t.cell(xi) {
+                total += t.gamma[c];
+                if pick.is_some_and(|u| u < total) {
+                    return (total, Some((i, None, c)));
+                }
+            }
+        }
+    }
+    if let Some(t) = &setup.table2 {
+        for i in 0..n {
+            for j in i + 1..n {
+                if let Some(c) = t.cell(setup.separation(x[i], x[j])) {
+                    total += t.gamma[c];
+                    if pick.is_some_and(|u| u < total) {
+                        return (total, Some((i, Some(j), c)));
+                    }
+                }
+            }
+        }
+    }
+    (total, None)
+}
+
+/// Fly one particle (and, through `stack`, its descendants) to the end of interval
+/// `interval`, pushing survivors into `out`.
+fn fly(
+    setup: &Setup,
+    interval: u64,
+    start: Flying,
+    out: &mut Store,
+    tally: &mut Tally,
+    stack: &mut Vec<Flying>,
+) {
+    let n = setup.n;
+    let dt = setup.dt;
+    let gmax = setup.gamma_max;
+    let force = setup.one_body.force;
+    stack.push(start);
+    'particles: while let Some(mut p) = stack.pop() {
+        let group = rng::group_of(p.id) as usize;
+        let mut rs = rng::stream(&[setup.seed, tag::FLIGHT, p.id, interval]);
+        let mut births = 0u64;
+        loop {
+            let next = if gmax > 0.0 {
+                let u: f64 = rs.random();
+                (p.tau - (1.0 - u).ln() / gmax).min(dt)
+            } else {
+                dt
+            };
+            let h = next - p.tau;
+            for i in 0..n {
+                let (xi, ki) = if force.is_zero() {
+                    (
+                        p.x[i] + crate::units::velocity(p.k[i], setup.mass) * h,
+                        p.k[i],
+                    )
+                } else {
+                    force.fly(p.x[i], p.k[i], h, setup.mass)
+                };
+                p.x[i] = xi;
+                p.k[i] = ki;
+            }
+            p.tau = next;
+            for i in 0..n {
+                match boundary(setup, &mut p.x[i], &mut p.k[i]) {
+                    Fate::Inside => {}
+                    Fate::Left => {
+                        tally.absorbed_left[group] += p.sign as i64;
+                        continue 'particles;
+                    }
+                    Fate::Right => {
+                        tally.absorbed_right[group] += p.sign as i64;
+                        continue 'particles;
+                    }
+                }
+            }
+            if !force.is_zero() && p.k.iter().any(|k| k.abs() > setup.k_max) {
+                tally.lost_momentum[group] += p.sign as i64;
+                continue 'particles;
+            }
+            if next >= dt {
+                out.push(&p.x, &p.k, p.id, p.sign);
+                continue 'particles;
+            }
+            tally.candidates += 1;
+            let u: f64 = rs.random::<f64>() * gmax;
+            let (_, chosen) = rates(setup, &p.x, Some(u));
+            let Some((i, j, cell)) = chosen else { continue };
+            tally.events += 1;
+            let table = if j.is_none() {
+                setup.table1.as_ref()
+            } else {
+                setup.table2.as_ref()
+            };
+            let m = table
+                .expect("a chosen term has a table")
+                .sample(cell, &mut rs);
+            let q = m as f64 * setup.dk;
+            for (child_sign, dir) in [(p.sign, 1.0), (-p.sign, -1.0)] {
+                let mut k = p.k.clone();
+                k[i] += dir * q;
+                if let Some(j) = j {
+                    k[j] -= dir * q;
+                }
+                let id = rng::make_id(
+                    group as u32,
+                    rng::hash(&[setup.seed, tag::CHILD_ID, p.id, interval, births]),
+                );
+                births += 1;
+                if k.iter().any(|v| v.abs() > setup.k_max) {
+                    tally.lost_momentum[group] += child_sign as i64;
+                    continue;
+                }
+                stack.push(Flying {
+                    x: p.x.clone(),
+                    k,
+                    id,
+                    sign: child_sign,
+                    tau: p.tau,
+                });
+            }
+        }
+    }
+}
+
+/// Advance every particle of `store` through synchronisation interval `interval`
+/// (from t = interval·dt to (interval + 1)·dt). Returns the survivors and the tallies.
+pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
+    let n = setup.n;
+    let groups = setup.groups as usize;
+    const CHUNK: usize = 2048;
+    let parts: Vec<(Store, Tally)> = (0..store.len().div_ceil(CHUNK))
+        .into_par_iter()
+        .map(|c| {
+            let (from, to) = (c * CHUNK, ((c + 1) * CHUNK).min(store.len()));
+            let mut out = Store::with_capacity(n, to - from);
+            let mut tally = Tally::new(groups);
+            let mut stack = Vec::new();
+            for p in from..to {
+                let start = Flying {
+                    x: store.xs(p).to_vec(),
+                    k: store.ks(p).to_vec(),
+                    id: store.id[p],
+                    sign: store.sign[p],
+                    tau: 0.0,
+                };
+                fly(setup, interval, start, &mut out, &mut tally, &mut stack);
+            }
+            (out, tally)
+        })
+        .collect();
+    let total: usize = parts.iter().map(|(s, _)| s.len()).sum();
+    let mut out = Store::with_capacity(n, total);
+    let mut tally = Tally::new(groups);
+    for (mut s, t) in parts {
+        out.append(&mut s);
+        tally.add(&t);
+    }
+    (out, tally)
+}

@@ -1,0 +1,297 @@
+//! Estimators over signed particles (physics.md §4), accumulated as integer counts per bin
+//! and per error group, so that the global sum is exact in any order.
+//!
+//! ⟨A⟩ = Σ_k s_k A(z_k) / S₀ with S₀ the net sign at t = 0. Group g gives its own estimate
+//! A_g = Σ_{k∈g} s_k A(z_k) / S₀_g; the reported value is the full-ensemble estimate and its
+//! standard error is the spread of the A_g over sqrt(B).
+
+use crate::comm::Comm;
+use crate::particles::Store;
+use crate::results::ResultFile;
+use crate::rng;
+use crate::setup::Setup;
+use crate::units;
+use rayon::prelude::*;
+
+/// Fixed-point scale of k sums (1/nm) and energy sums (eV).
+const K_SCALE: f64 = (1u64 << 40) as f64;
+const E_SCALE: f64 = (1u64 << 40) as f64;
+
+/// Integer histograms of one rank (then of all ranks after [`Counts::reduce`]).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Counts {
+    groups: usize,
+    nx: usize,
+    nk: usize,
+    pair: bool,
+    /// Σ s per group.
+    pub net: Vec<i64>,
+    pub positive: i64,
+    pub negative: i64,
+    density: Vec<i64>,
+    pair_density: Vec<i64>,
+    wigner: Vec<i64>,
+    momentum: Vec<i64>,
+    /// Σ s·k per x bin, fixed point.
+    current: Vec<i128>,
+    /// Σ s·H, fixed point.
+    energy: Vec<i128>,
+}
+
+impl Counts {
+    fn zero(setup: &Setup) -> Self {
+        let g = setup.groups as usize;
+        let (nx, nk) = (setup.x_bins.n, setup.k_bins.n);
+        let pair = setup.n >= 2;
+        Counts {
+            groups: g,
+            nx,
+            nk,
+            pair,
+            net: vec![0; g],
+            positive: 0,
+            negative: 0,
+            density: vec![0; g * nx],
+            pair_density: vec![0; if pair { g * nx * nx } else { 0 }],
+            wigner: vec![0; g * nx * nk],
+            momentum: vec![0; g * nk],
+            current: vec![0; g * nx],
+            energy: vec![0; g],
+        }
+    }
+
+    fn add(mut self, o: Counts) -> Counts {
+        fn add_into<T: std::ops::AddAssign + Copy>(a: &mut [T], b: &[T]) {
+            for (x, y) in a.iter_mut().zip(b) {
+                *x += *y;
+            }
+        }
+        add_into(&mut self.net, &o.net);
+        self.positive += o.positive;
+        self.negative += o.negative;
+        add_into(&mut self.density, &o.density);
+        add_into(&mut self.pair_density, &o.pair_density);
+        add_into(&mut self.wigner, &o.wigner);
+        add_into(&mut self.momentum, &o.momentum);
+        add_into(&mut self.current, &o.current);
+        add_into(&mut self.energy, &o.energy);
+        self
+    }
+
+    /// Histogram the particles of this rank.
+    pub fn collect(setup: &Setup, store: &Store) -> Counts {
+        const CHUNK: usize = 8192;
+        (0..store.len().div_ceil(CHUNK))
+            .into_par_iter()
+            .map(|c| {
+                let mut h = Counts::zero(setup);
+                for p in c * CHUNK..((c + 1) * CHUNK).min(store.len()) {
+                    h.count(
+                        setup,
+                        store.xs(p),
+                        store.ks(p),
+                        store.sign[p] as i64,
+                        rng::group_of(store.id[p]) as usize,
+                    );
+                }
+                h
+            })
+            .reduce(|| Counts::zero(setup), Counts::add)
+    }
+
+    fn count(&mut self, setup: &Setup, x: &[f64], k: &[f64], s: i64, g: usize) {
+        let (nx, nk) = (self.nx, self.nk);
+        self.net[g] += s;
+        if s > 0 {
+            self.positive += 1;
+        } else {
+            self.negative += 1;
+        }
+        let bins: [Option<usize>; 8] = std::array::from_fn(|i| {
+            if i < x.len() {
+                setup.x_bins.index(x[i])
+            } else {
+                None
+            }
+        });
+        let bins_of = |i: usize| {
+            if i < 8 {
+                bins[i]
+            } else {
+                setup.x_bins.index(x[i])
+            }
+        };
+        for i in 0..x.len() {
+            let bx = bins_of(i);
+            let bk = setup.k_bins.index(k[i]);
+            if let Some(bx) = bx {
+                self.density[g * nx + bx] += s;
+                self.current[g * nx + bx] += s as i128 * (k[i] * K_SCALE).round() as i128;
+                if let Some(bk) = bk {
+                    self.wigner[(g * nx + bx) * nk + bk] += s;
+                }
+                if self.pair {
+                    for j in 0..x.len() {
+                        if j != i
+                            && let Some(by) = bins_of(j)
+                        {
+                            self.pair_density[(g * nx + bx) * nx + by] += s;
+                        }
+                    }
+                }
+            }
+            if let Some(bk) = bk {
+                self.momentum[g * nk + bk] += s;
+            }
+        }
+        self.energy[g] += s as i128 * (setup.energy(x, k) * E_SCALE).round() as i128;
+    }
+
+    /// Global sum over ranks (exact).
+    pub fn reduce(mut self, comm: &dyn Comm) -> Counts {
+        let mut ints: Vec<i64> = Vec::new();
+        for v in [
+            &self.net,
+            &self.density,
+            &self.pair_density,
+            &self.wigner,
+            &self.momentum,
+        ] {
+            ints.extend_from_slice(v);
+        }
+        ints.push(self.positive);
+        ints.push(self.negative);
+        comm.sum_i64(&mut ints);
+        let mut it = ints.into_iter();
+        for v in [
+            &mut self.net,
+            &mut self.density,
+            &mut self.pair_density,
+            &mut self.wigner,
+            &mut self.momentum,
+        ] {
+            for x in v.iter_mut() {
+                *x = it.next().expect("same layout");
+            }
+        }
+        self.positive = it.next().expect("same layout");
+        self.negative = it.next().expect("same layout");
+        let mut wide: Vec<i128> = self
+            .current
+            .iter()
+            .chain(self.energy.iter())
+            .copied()
+            .collect();
+        comm.sum_i128(&mut wide);
+        let (c, e) = wide.split_at(self.current.len());
+        self.current.copy_from_slice(c);
+        self.energy.copy_from_slice(e);
+        self
+    }
+
+    pub fn particles(&self) -> u64 {
+        (self.positive + self.negative) as u64
+    }
+}
+
+/// Estimate and standard error from per-group sums `per_group(g)` (length len each),
+/// normalised by `s0` (per group) and multiplied by `scale`.
+fn estimate(
+    len: usize,
+    groups: usize,
+    s0: &[i64],
+    scale: f64,
+    per_group: impl Fn(usize, usize) -> f64,
+) -> (Vec<f64>, Vec<f64>) {
+    let total0: i64 = s0.iter().sum();
+    let mut value = vec![0.0; len];
+    let mut error = vec![0.0; len];
+    let b = groups as f64;
+    for i in 0..len {
+        let sum: f64 = (0..groups).map(|g| per_group(g, i)).sum();
+        value[i] = sum / total0 as f64 * scale;
+        let est: Vec<f64> = (0..groups)
+            .map(|g| per_group(g, i) / s0[g] as f64 * scale)
+            .collect();
+        let mean = est.iter().sum::<f64>() / b;
+        let var = est.iter().map(|e| (e - mean) * (e - mean)).sum::<f64>() / (b - 1.0);
+        error[i] = (var / b).sqrt();
+    }
+    (value, error)
+}
+
+/// Cumulative signed counts of particles that left, per group.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Departed {
+    pub left: Vec<i64>,
+    pub right: Vec<i64>,
+    pub momentum: Vec<i64>,
+}
+
+/// Append one output frame to `out`.
+pub fn frame(
+    setup: &Setup,
+    out: &mut ResultFile,
+    time: f64,
+    c: &Counts,
+    s0: &[i64],
+    gone: &Departed,
+) {
+    let (g, nx, nk) = (c.groups, c.nx, c.nk);
+    let (dx, dk) = (setup.x_bins.width(), setup.k_bins.width());
+    out.push("time", "fs", &[], &[time]);
+    let mut put = |name: &str,
+                   units: &str,
+                   shape: &[usize],
+                   len: usize,
+                   scale: f64,
+                   f: &dyn Fn(usize, usize) -> f64| {
+        let (v, e) = estimate(len, g, s0, scale, f);
+        out.push(name, units, shape, &v);
+        out.push(&format!("{name}_error"), units, shape, &e);
+    };
+    put("density", "1/nm", &[nx], nx, 1.0 / dx, &|gr, i| {
+        c.density[gr * nx + i] as f64
+    });
+    if c.pair {
+        put(
+            "pair_density",
+            "1/nm^2",
+            &[nx, nx],
+            nx * nx,
+            1.0 / (dx * dx),
+            &|gr, i| c.pair_density[gr * nx * nx + i] as f64,
+        );
+    }
+    put(
+        "wigner",
+        "1",
+        &[nx, nk],
+        nx * nk,
+        1.0 / (dx * dk),
+        &|gr, i| c.wigner[gr * nx * nk + i] as f64,
+    );
+    put("momentum_density", "nm", &[nk], nk, 1.0 / dk, &|gr, i| {
+        c.momentum[gr * nk + i] as f64
+    });
+    let v = units::HBAR / setup.mass / K_SCALE / dx;
+    put("current_density", "1/fs", &[nx], nx, v, &|gr, i| {
+        c.current[gr * nx + i] as f64
+    });
+    put("norm", "1", &[], 1, 1.0, &|gr, _| c.net[gr] as f64);
+    put("absorbed_left", "1", &[], 1, 1.0, &|gr, _| {
+        gone.left[gr] as f64
+    });
+    put("absorbed_right", "1", &[], 1, 1.0, &|gr, _| {
+        gone.right[gr] as f64
+    });
+    put("lost_norm", "1", &[], 1, 1.0, &|gr, _| {
+        gone.momentum[gr] as f64
+    });
+    put("energy", "eV", &[], 1, 1.0 / E_SCALE, &|gr, _| {
+        c.energy[gr] as f64
+    });
+    out.push("particles", "1", &[], &[c.particles() as f64]);
+    out.push("particles_positive", "1", &[], &[c.positive as f64]);
+    out.push("particles_negative", "1", &[], &[c.negative as f64]);
+}
