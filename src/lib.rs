@@ -2,6 +2,7 @@
 pub mod colormap;
 pub mod grid;
 pub mod initial;
+pub mod inspect;
 pub mod job;
 pub mod kernel;
 pub mod orbitals;
