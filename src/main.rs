@@ -93,6 +93,21 @@ fn main() -> ExitCode {
 
 fn dispatch(cmd: Command) -> anyhow::Result<ExitCode> {
     match cmd {
+        Command::Plot {
+            file,
+            out,
+            times,
+            against,
+        } => {
+            for path in signfold::plot::plot(&file, &out, times.as_deref(), against.as_deref())? {
+                println!("{}", path.display());
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Inspect { file } => {
+            print!("{}", signfold::inspect::inspect(&file)?);
+            Ok(ExitCode::SUCCESS)
+        }
         _ => anyhow::bail!("not implemented yet"),
     }
 }
