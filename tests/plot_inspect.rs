@@ -270,7 +270,10 @@ fn truncated_file_fails_cleanly() {
     let cut = dir.path().join("cut.h5");
     std::fs::write(&cut, &bytes[..bytes.len() / 2]).unwrap();
     let out = dir.path().join("p");
-    assert_clean_failure(&signfold(&["plot", s(&cut), "--out", s(&out)]), &["cut.h5"]);
+    assert_clean_failure(
+        &signfold(&["plot", s(&cut), "--out", s(&out)]),
+        &["cut.h5", "truncated"],
+    );
     assert_clean_failure(&signfold(&["inspect", s(&cut)]), &["cut.h5", "truncated"]);
 }
 
