@@ -3,14 +3,17 @@
 pub mod advance;
 pub mod annihilate;
 pub mod check;
+pub mod colormap;
 pub mod comm;
 pub mod grid;
 pub mod initial;
+pub mod inspect;
 pub mod job;
 pub mod kernel;
 pub mod observe;
 pub mod orbitals;
 pub mod particles;
+pub mod plot;
 pub mod potential;
 pub mod results;
 pub mod rng;

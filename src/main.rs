@@ -187,6 +187,21 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             collective(run::run(&setup, &opts, world))?;
             Ok(ExitCode::SUCCESS)
         }
+        Command::Plot {
+            file,
+            out,
+            times,
+            against,
+        } => {
+            for path in signfold::plot::plot(&file, &out, times.as_deref(), against.as_deref())? {
+                println!("{}", path.display());
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Inspect { file } => {
+            print!("{}", signfold::inspect::inspect(&file)?);
+            Ok(ExitCode::SUCCESS)
+        }
         _ => anyhow::bail!("not implemented yet"),
     }
 }
