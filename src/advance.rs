@@ -53,11 +53,16 @@ impl Tally {
     }
 }
 
+/// Largest particle count per configuration the flight kernel handles (fixed-size arrays
+/// keep the hot loop free of allocation); raise it to simulate more particles.
+pub const MAX_N: usize = 8;
+
 /// A particle in flight: coordinates, identity, sign, and the time it has reached (fs from
 /// the start of the interval).
+#[derive(Clone, Copy)]
 struct Flying {
-    x: Vec<f64>,
-    k: Vec<f64>,
+    x: [f64; MAX_N],
+    k: [f64; MAX_N],
     id: u64,
     sign: i8,
     tau: f64,
@@ -197,17 +202,17 @@ fn fly(
                     }
                 }
             }
-            if !force.is_zero() && p.k.iter().any(|k| k.abs() > setup.k_max) {
+            if !force.is_zero() && p.k[..n].iter().any(|k| k.abs() > setup.k_max) {
                 tally.lost_momentum[group] += p.sign as i64;
                 continue 'particles;
             }
             if next >= dt {
-                out.push(&p.x, &p.k, p.id, p.sign);
+                out.push(&p.x[..n], &p.k[..n], p.id, p.sign);
                 continue 'particles;
             }
             tally.candidates += 1;
             let u: f64 = rs.random::<f64>() * gmax;
-            let (_, chosen) = rates(setup, &p.x, Some(u));
+            let (_, chosen) = rates(setup, &p.x[..n], Some(u));
             let Some((i, j, cell)) = chosen else { continue };
             tally.events += 1;
             let table = if j.is_none() {
@@ -220,7 +225,7 @@ fn fly(
                 .sample(cell, &mut rs);
             let q = m as f64 * setup.dk;
             for (child_sign, dir) in [(p.sign, 1.0), (-p.sign, -1.0)] {
-                let mut k = p.k.clone();
+                let mut k = p.k;
                 k[i] += dir * q;
                 if let Some(j) = j {
                     k[j] -= dir * q;
@@ -230,7 +235,7 @@ fn fly(
                     rng::hash(&[setup.seed, tag::CHILD_ID, p.id, interval, births]),
                 );
                 births += 1;
-                if k.iter().any(|v| v.abs() > setup.k_max) {
+                if k[..n].iter().any(|v| v.abs() > setup.k_max) {
                     tally.lost_momentum[group] += child_sign as i64;
                     continue;
                 }
@@ -260,13 +265,15 @@ pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
             let mut tally = Tally::new(groups);
             let mut stack = Vec::new();
             for p in from..to {
-                let start = Flying {
-                    x: store.xs(p).to_vec(),
-                    k: store.ks(p).to_vec(),
+                let mut start = Flying {
+                    x: [0.0; MAX_N],
+                    k: [0.0; MAX_N],
                     id: store.id[p],
                     sign: store.sign[p],
                     tau: 0.0,
                 };
+                start.x[..n].copy_from_slice(store.xs(p));
+                start.k[..n].copy_from_slice(store.ks(p));
                 fly(setup, interval, start, &mut out, &mut tally, &mut stack);
             }
             (out, tally)

@@ -363,6 +363,12 @@ pub fn validate(job: &Job) -> Result<()> {
     if n == 0 {
         bail!("particles.count: must be at least 1");
     }
+    if n > crate::advance::MAX_N {
+        bail!(
+            "particles.count: at most {} particles are supported by this build (got {n})",
+            crate::advance::MAX_N
+        );
+    }
     if job.orbitals.len() != n {
         bail!(
             "particles.count is {n} but {} [[orbital]] entries are given: one orbital per particle",

@@ -36,6 +36,8 @@ pub struct Counts {
     current: Vec<i128>,
     /// Σ s·H, fixed point.
     energy: Vec<i128>,
+    /// Σ s·Σ_i x_i, Σ s·Σ_i k_i, Σ s·Σ_i (−∂V/∂x_i), fixed point.
+    moments: Vec<i128>,
 }
 
 impl Counts {
@@ -57,6 +59,7 @@ impl Counts {
             momentum: vec![0; g * nk],
             current: vec![0; g * nx],
             energy: vec![0; g],
+            moments: vec![0; 3 * g],
         }
     }
 
@@ -75,6 +78,7 @@ impl Counts {
         add_into(&mut self.momentum, &o.momentum);
         add_into(&mut self.current, &o.current);
         add_into(&mut self.energy, &o.energy);
+        add_into(&mut self.moments, &o.moments);
         self
     }
 
@@ -145,6 +149,14 @@ impl Counts {
             }
         }
         self.energy[g] += s as i128 * (setup.energy(x, k) * E_SCALE).round() as i128;
+        let (sx, sk, sf) = (
+            x.iter().sum::<f64>(),
+            k.iter().sum::<f64>(),
+            x.iter().map(|&v| -setup.force_at(v)).sum::<f64>(),
+        );
+        self.moments[3 * g] += s as i128 * (sx * E_SCALE).round() as i128;
+        self.moments[3 * g + 1] += s as i128 * (sk * E_SCALE).round() as i128;
+        self.moments[3 * g + 2] += s as i128 * (sf * E_SCALE).round() as i128;
     }
 
     /// Global sum over ranks (exact).
@@ -179,13 +191,16 @@ impl Counts {
         let mut wide: Vec<i128> = self
             .current
             .iter()
-            .chain(self.energy.iter())
+            .chain(&self.energy)
+            .chain(&self.moments)
             .copied()
             .collect();
         comm.sum_i128(&mut wide);
-        let (c, e) = wide.split_at(self.current.len());
+        let (c, rest) = wide.split_at(self.current.len());
+        let (e, m) = rest.split_at(self.energy.len());
         self.current.copy_from_slice(c);
         self.energy.copy_from_slice(e);
+        self.moments.copy_from_slice(m);
         self
     }
 
@@ -290,6 +305,16 @@ pub fn frame(
     });
     put("energy", "eV", &[], 1, 1.0 / E_SCALE, &|gr, _| {
         c.energy[gr] as f64
+    });
+    let per = 1.0 / (E_SCALE * setup.n as f64);
+    put("mean_x", "nm", &[], 1, per, &|gr, _| {
+        c.moments[3 * gr] as f64
+    });
+    put("mean_k", "1/nm", &[], 1, per, &|gr, _| {
+        c.moments[3 * gr + 1] as f64
+    });
+    put("mean_force", "eV/nm", &[], 1, per, &|gr, _| {
+        c.moments[3 * gr + 2] as f64
     });
     out.push("particles", "1", &[], &[c.particles() as f64]);
     out.push("particles_positive", "1", &[], &[c.positive as f64]);

@@ -179,6 +179,14 @@ impl Setup {
         self.one_body.total(x)
     }
 
+    /// dU/dx of the whole one-body potential (kernel part and forces), eV/nm, by a
+    /// central difference over 1e-4 nm.
+    #[inline]
+    pub fn force_at(&self, x: f64) -> f64 {
+        let h = 1e-4;
+        (self.u1(x + h) - self.u1(x - h)) / (2.0 * h)
+    }
+
     /// Relative coordinate of a pair, minimal image when periodic.
     #[inline]
     pub fn separation(&self, xi: f64, xj: f64) -> f64 {
