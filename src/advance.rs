@@ -240,7 +240,7 @@ fn fly(
                     continue;
                 }
                 stack.push(Flying {
-                    x: p.x.clone(),
+                    x: p.x,
                     k,
                     id,
                     sign: child_sign,
