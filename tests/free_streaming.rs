@@ -1,10 +1,11 @@
 //! Free streaming is exact (Moyal, Proc. Camb. Phil. Soc. 45, 99 (1949): for V at most
-#![allow(clippy::needless_range_loop)]
 //! quadratic the Wigner equation is the Liouville equation), so the sampled N-body Wigner
 //! function at time t must reproduce the exact densities of the freely evolved
 //! (anti)symmetrised state at every output time, within the engine's standard errors. The
 //! exact side uses only textbook free Gaussian packets (see `common::free_gaussian`) and
 //! the Slater-determinant density formulas; nothing from the engine's own Wigner code.
+
+#![allow(clippy::needless_range_loop)]
 
 mod common;
 
