@@ -13,7 +13,9 @@ pub fn steps_per_output(job: &Job) -> u64 {
 
 /// Total number of synchronisation steps: ceil(end_time / sync_step).
 pub fn total_steps(job: &Job) -> u64 {
-    ((job.numerics.end_time / job.numerics.sync_step) - 1e-9).ceil().max(1.0) as u64
+    ((job.numerics.end_time / job.numerics.sync_step) - 1e-9)
+        .ceil()
+        .max(1.0) as u64
 }
 
 /// Time (fs) of synchronisation step `s`: exactly s·sync_step.
@@ -33,7 +35,10 @@ pub fn output_steps(job: &Job) -> Vec<u64> {
 
 /// Output times, fs.
 pub fn output_times(job: &Job) -> Vec<f64> {
-    output_steps(job).into_iter().map(|s| step_time(job, s)).collect()
+    output_steps(job)
+        .into_iter()
+        .map(|s| step_time(job, s))
+        .collect()
 }
 
 /// Uniform bins over [lo, hi): centres, and the index of a value (None outside).
@@ -49,7 +54,9 @@ impl Bins {
         (self.hi - self.lo) / self.n as f64
     }
     pub fn centres(&self) -> Vec<f64> {
-        (0..self.n).map(|i| self.lo + (i as f64 + 0.5) * self.width()).collect()
+        (0..self.n)
+            .map(|i| self.lo + (i as f64 + 0.5) * self.width())
+            .collect()
     }
     #[inline]
     pub fn index(&self, v: f64) -> Option<usize> {
@@ -64,10 +71,18 @@ impl Bins {
 
 /// Output bins in x over the domain.
 pub fn x_bins(job: &Job) -> Bins {
-    Bins { lo: job.domain.x_min, hi: job.domain.x_max, n: job.output.x_bins }
+    Bins {
+        lo: job.domain.x_min,
+        hi: job.domain.x_max,
+        n: job.output.x_bins,
+    }
 }
 
 /// Output bins in k over [−k_max, k_max].
 pub fn k_bins(job: &Job) -> Bins {
-    Bins { lo: -job.domain.k_max, hi: job.domain.k_max, n: job.output.k_bins }
+    Bins {
+        lo: -job.domain.k_max,
+        hi: job.domain.k_max,
+        n: job.output.k_bins,
+    }
 }

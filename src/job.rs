@@ -88,7 +88,11 @@ pub enum PotentialTerm {
         smoothing: Option<f64>,
     },
     /// height·exp(−(x − centre)²/(2 width²)).
-    Gaussian { centre: f64, width: f64, height: f64 },
+    Gaussian {
+        centre: f64,
+        width: f64,
+        height: f64,
+    },
     /// Piecewise-linear profile read from a two-column text file (x in nm, U in eV),
     /// relative to the job file; constant beyond its ends.
     Table { file: PathBuf },
@@ -406,7 +410,11 @@ pub fn validate(job: &Job) -> Result<()> {
                 finite(&key("to"), *to)?;
                 finite(&key("height"), *height)?;
                 if to <= from {
-                    bail!("{}: must be greater than {} ({to} ≤ {from})", key("to"), key("from"));
+                    bail!(
+                        "{}: must be greater than {} ({to} ≤ {from})",
+                        key("to"),
+                        key("from")
+                    );
                 }
                 if let Some(s) = smoothing {
                     positive(&key("smoothing"), *s)?;
@@ -473,7 +481,10 @@ pub fn validate(job: &Job) -> Result<()> {
         positive("annihilation.cell_k", c)?;
     }
     if a.trigger <= 1.0 || !a.trigger.is_finite() {
-        bail!("annihilation.trigger: must be greater than 1 (got {})", a.trigger);
+        bail!(
+            "annihilation.trigger: must be greater than 1 (got {})",
+            a.trigger
+        );
     }
     if a.cells == CellKind::Relative && !job.potentials.is_empty() {
         bail!(

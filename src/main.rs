@@ -5,7 +5,11 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 #[derive(Parser)]
-#[command(name = "signfold", version, about = "Signed-particle Wigner Monte Carlo for a few interacting particles")]
+#[command(
+    name = "signfold",
+    version,
+    about = "Signed-particle Wigner Monte Carlo for a few interacting particles"
+)]
 struct Cli {
     #[command(subcommand)]
     command: Command,
@@ -51,6 +55,12 @@ enum Command {
         set: Vec<String>,
         #[arg(long)]
         force: bool,
+        /// Grid points per axis (default: chosen from the job).
+        #[arg(long)]
+        points: Option<usize>,
+        /// Largest time step, fs (default: chosen from the job).
+        #[arg(long, value_name = "FS")]
+        dt: Option<f64>,
     },
     /// Compare two result files observable by observable.
     Compare {
@@ -89,6 +99,29 @@ fn main() -> ExitCode {
 
 fn dispatch(cmd: Command) -> anyhow::Result<ExitCode> {
     match cmd {
+        Command::Reference {
+            job,
+            out,
+            set,
+            force,
+            points,
+            dt,
+        } => {
+            let opts = signfold::reference::ReferenceOptions {
+                points_per_axis: points,
+                dt,
+            };
+            signfold::reference::command(&job, &out, &set, force, &opts)?;
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Compare { a, b, tolerance } => {
+            let ok = signfold::compare::compare(&a, &b, tolerance)?;
+            Ok(if ok {
+                ExitCode::SUCCESS
+            } else {
+                ExitCode::from(1)
+            })
+        }
         _ => anyhow::bail!("not implemented yet"),
     }
 }

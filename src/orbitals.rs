@@ -47,7 +47,8 @@ pub fn overlap(a: &Gaussian, b: &Gaussian) -> Complex64 {
     let alpha = aa + ab;
     let beta = Complex64::new(2.0 * (aa * a.x0 + ab * b.x0), b.k0 - a.k0);
     let gamma = -aa * a.x0 * a.x0 - ab * b.x0 * b.x0;
-    let norm = (2.0 * PI * a.sigma * a.sigma).powf(-0.25) * (2.0 * PI * b.sigma * b.sigma).powf(-0.25);
+    let norm =
+        (2.0 * PI * a.sigma * a.sigma).powf(-0.25) * (2.0 * PI * b.sigma * b.sigma).powf(-0.25);
     (beta * beta / (4.0 * alpha) + gamma).exp() * (PI / alpha).sqrt() * norm
 }
 
@@ -61,7 +62,10 @@ pub fn cross_wigner(a: &Gaussian, b: &Gaussian, x: f64, k: f64) -> Complex64 {
     let (ua, ub) = (x - a.x0, x - b.x0);
     let big_a = (1.0 / va + 1.0 / vb) / 16.0;
     let big_b = Complex64::new(-ua / (4.0 * va) + ub / (4.0 * vb), 0.5 * (a.k0 + b.k0) - k);
-    let big_c = Complex64::new(-ua * ua / (4.0 * va) - ub * ub / (4.0 * vb), (a.k0 - b.k0) * x);
+    let big_c = Complex64::new(
+        -ua * ua / (4.0 * va) - ub * ub / (4.0 * vb),
+        (a.k0 - b.k0) * x,
+    );
     let pre = (2.0 * PI * va).powf(-0.25) * (2.0 * PI * vb).powf(-0.25) / (2.0 * PI)
         * (PI / big_a).sqrt();
     (big_b * big_b / (4.0 * big_a) + big_c).exp() * pre
@@ -133,7 +137,10 @@ mod tests {
         for &(x, k) in &[(0.0, 0.0), (-1.3, 0.5), (2.2, -0.8), (0.4, 0.15)] {
             let exact = quadrature(&a, &b, x, k);
             let closed = cross_wigner(&a, &b, x, k);
-            assert!((exact - closed).norm() < 1e-9, "{x} {k}: {exact} vs {closed}");
+            assert!(
+                (exact - closed).norm() < 1e-9,
+                "{x} {k}: {exact} vs {closed}"
+            );
         }
     }
 

@@ -13,16 +13,30 @@ use std::path::Path;
 #[derive(Clone, Debug, PartialEq)]
 enum Term {
     /// h·[L((x − a)/λ) − L((x − b)/λ)], L the logistic function.
-    Barrier { a: f64, b: f64, h: f64, lambda: f64 },
-    Gaussian { c: f64, w: f64, h: f64 },
+    Barrier {
+        a: f64,
+        b: f64,
+        h: f64,
+        lambda: f64,
+    },
+    Gaussian {
+        c: f64,
+        w: f64,
+        h: f64,
+    },
     /// Piecewise-linear through (x, U) points, constant beyond the ends.
-    Table { x: Vec<f64>, u: Vec<f64> },
+    Table {
+        x: Vec<f64>,
+        u: Vec<f64>,
+    },
 }
 
 impl Term {
     fn value(&self, x: f64) -> f64 {
         match self {
-            Term::Barrier { a, b, h, lambda } => h * (logistic((x - a) / lambda) - logistic((x - b) / lambda)),
+            Term::Barrier { a, b, h, lambda } => {
+                h * (logistic((x - a) / lambda) - logistic((x - b) / lambda))
+            }
             Term::Gaussian { c, w, h } => h * (-(x - c) * (x - c) / (2.0 * w * w)).exp(),
             Term::Table { x: xs, u } => {
                 let n = xs.len();
@@ -101,22 +115,44 @@ pub struct OneBody {
 impl OneBody {
     /// Resolve the job's terms. `mesh_dx` sets the default edge smoothing (two mesh
     /// cells); table files are read relative to `base_dir`; `mass` in eV·fs²/nm².
-    pub fn from_job(terms: &[PotentialTerm], mesh_dx: f64, mass: f64, base_dir: &Path) -> Result<Self> {
+    pub fn from_job(
+        terms: &[PotentialTerm],
+        mesh_dx: f64,
+        mass: f64,
+        base_dir: &Path,
+    ) -> Result<Self> {
         let mut out = OneBody::default();
         for (i, t) in terms.iter().enumerate() {
             match t {
-                PotentialTerm::Barrier { from, to, height, smoothing } => {
+                PotentialTerm::Barrier {
+                    from,
+                    to,
+                    height,
+                    smoothing,
+                } => {
                     // `smoothing` is the length over which an edge rises from 12 % to 88 %
                     // (four logistic scale lengths).
                     let s = smoothing.unwrap_or(2.0 * mesh_dx);
-                    out.terms.push(Term::Barrier { a: *from, b: *to, h: *height, lambda: s / 4.0 });
+                    out.terms.push(Term::Barrier {
+                        a: *from,
+                        b: *to,
+                        h: *height,
+                        lambda: s / 4.0,
+                    });
                 }
-                PotentialTerm::Gaussian { centre, width, height } => {
-                    out.terms.push(Term::Gaussian { c: *centre, w: *width, h: *height })
-                }
+                PotentialTerm::Gaussian {
+                    centre,
+                    width,
+                    height,
+                } => out.terms.push(Term::Gaussian {
+                    c: *centre,
+                    w: *width,
+                    h: *height,
+                }),
                 PotentialTerm::Table { file } => {
                     let path = base_dir.join(file);
-                    let (x, u) = read_table(&path).with_context(|| format!("potential[{i}].file"))?;
+                    let (x, u) =
+                        read_table(&path).with_context(|| format!("potential[{i}].file"))?;
                     out.terms.push(Term::Table { x, u });
                 }
                 PotentialTerm::Field { slope } => out.force.slope += slope,
@@ -154,35 +190,53 @@ impl OneBody {
 }
 
 fn read_table(path: &Path) -> Result<(Vec<f64>, Vec<f64>)> {
-    let text = std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
+    let text =
+        std::fs::read_to_string(path).with_context(|| format!("cannot read {}", path.display()))?;
     let (mut xs, mut us) = (Vec::new(), Vec::new());
     for (ln, line) in text.lines().enumerate() {
         let line = line.split('#').next().unwrap_or("").trim();
         if line.is_empty() {
             continue;
         }
-        let cols: Vec<&str> = line.split(|c: char| c.is_whitespace() || c == ',').filter(|s| !s.is_empty()).collect();
+        let cols: Vec<&str> = line
+            .split(|c: char| c.is_whitespace() || c == ',')
+            .filter(|s| !s.is_empty())
+            .collect();
         if cols.len() != 2 {
-            bail!("{}:{}: expected two columns (x in nm, U in eV), found {}", path.display(), ln + 1, cols.len());
+            bail!(
+                "{}:{}: expected two columns (x in nm, U in eV), found {}",
+                path.display(),
+                ln + 1,
+                cols.len()
+            );
         }
         let parse = |s: &str| -> Result<f64> {
-            let v: f64 = s.parse().map_err(|_| anyhow::anyhow!("{}:{}: `{s}` is not a number", path.display(), ln + 1))?;
+            let v: f64 = s.parse().map_err(|_| {
+                anyhow::anyhow!("{}:{}: `{s}` is not a number", path.display(), ln + 1)
+            })?;
             if !v.is_finite() {
                 bail!("{}:{}: `{s}` is not finite", path.display(), ln + 1);
             }
             Ok(v)
         };
         let (x, u) = (parse(cols[0])?, parse(cols[1])?);
-        if let Some(&last) = xs.last() {
-            if x <= last {
-                bail!("{}:{}: x must increase ({x} after {last})", path.display(), ln + 1);
-            }
+        if let Some(&last) = xs.last()
+            && x <= last
+        {
+            bail!(
+                "{}:{}: x must increase ({x} after {last})",
+                path.display(),
+                ln + 1
+            );
         }
         xs.push(x);
         us.push(u);
     }
     if xs.len() < 2 {
-        bail!("{}: a potential table needs at least two points", path.display());
+        bail!(
+            "{}: a potential table needs at least two points",
+            path.display()
+        );
     }
     Ok((xs, us))
 }
@@ -198,15 +252,22 @@ impl PairPotential {
     pub fn from_job(p: &Pair) -> Option<Self> {
         match *p {
             Pair::None => None,
-            Pair::SoftCoulomb { permittivity, softening } => {
-                Some(PairPotential::SoftCoulomb { strength: units::COULOMB / permittivity, softening })
-            }
+            Pair::SoftCoulomb {
+                permittivity,
+                softening,
+            } => Some(PairPotential::SoftCoulomb {
+                strength: units::COULOMB / permittivity,
+                softening,
+            }),
         }
     }
     /// U₂(r), eV.
     pub fn value(&self, r: f64) -> f64 {
         match *self {
-            PairPotential::SoftCoulomb { strength, softening } => strength / (r * r + softening * softening).sqrt(),
+            PairPotential::SoftCoulomb {
+                strength,
+                softening,
+            } => strength / (r * r + softening * softening).sqrt(),
         }
     }
 }
@@ -219,7 +280,11 @@ mod tests {
     fn harmonic_flight_is_a_rotation() {
         // Classical harmonic oscillator (textbook): x(t) = x0 cos ωt + v0/ω sin ωt.
         let m = units::mass_from_electron_masses(0.067);
-        let f = Force { slope: 0.0, stiffness: m * 0.02f64.powi(2), centre: 0.0 };
+        let f = Force {
+            slope: 0.0,
+            stiffness: m * 0.02f64.powi(2),
+            centre: 0.0,
+        };
         let (x, k) = f.fly(3.0, 0.5, 40.0, m);
         let w = 0.02f64;
         let v0 = units::HBAR * 0.5 / m;
@@ -233,7 +298,11 @@ mod tests {
     #[test]
     fn uniform_field_accelerates() {
         let m = units::ELECTRON_MASS;
-        let f = Force { slope: 0.01, stiffness: 0.0, centre: 0.0 };
+        let f = Force {
+            slope: 0.01,
+            stiffness: 0.0,
+            centre: 0.0,
+        };
         let (_, k) = f.fly(0.0, 0.0, 10.0, m);
         assert!((k + 0.01 * 10.0 / units::HBAR).abs() < 1e-14);
     }
@@ -241,7 +310,12 @@ mod tests {
     #[test]
     fn barrier_reaches_its_height() {
         let p = OneBody::from_job(
-            &[PotentialTerm::Barrier { from: -1.0, to: 1.0, height: 0.3, smoothing: Some(0.2) }],
+            &[PotentialTerm::Barrier {
+                from: -1.0,
+                to: 1.0,
+                height: 0.3,
+                smoothing: Some(0.2),
+            }],
             0.5,
             1.0,
             Path::new("."),

@@ -67,24 +67,35 @@ impl ResultFile {
 
     /// Append one frame of series `name` (created on first use).
     pub fn push(&mut self, name: &str, units: &str, frame_shape: &[usize], values: &[f64]) {
-        let s = self.series.entry(name.to_string()).or_insert_with(|| Series {
-            units: units.to_string(),
-            frame_shape: frame_shape.to_vec(),
-            data: Vec::new(),
-        });
-        assert_eq!(s.frame_len(), values.len(), "frame of {name} has the wrong size");
+        let s = self
+            .series
+            .entry(name.to_string())
+            .or_insert_with(|| Series {
+                units: units.to_string(),
+                frame_shape: frame_shape.to_vec(),
+                data: Vec::new(),
+            });
+        assert_eq!(
+            s.frame_len(),
+            values.len(),
+            "frame of {name} has the wrong size"
+        );
         s.data.extend_from_slice(values);
     }
 
     /// Output times, fs.
     pub fn times(&self) -> &[f64] {
-        self.series.get("time").map(|s| s.data.as_slice()).unwrap_or(&[])
+        self.series
+            .get("time")
+            .map(|s| s.data.as_slice())
+            .unwrap_or(&[])
     }
 
     /// Write to `path` atomically: a temporary file in the same directory, then rename.
     pub fn write_atomic(&self, path: &Path) -> Result<()> {
         let tmp = path.with_extension("h5.tmp");
-        self.write_to(&tmp).with_context(|| format!("cannot write {}", tmp.display()))?;
+        self.write_to(&tmp)
+            .with_context(|| format!("cannot write {}", tmp.display()))?;
         std::fs::rename(&tmp, path)
             .with_context(|| format!("cannot rename {} to {}", tmp.display(), path.display()))?;
         Ok(())
@@ -95,13 +106,18 @@ impl ResultFile {
         write_str_attr(&f, "file_type", &self.file_type)?;
         write_str_attr(&f, "job", &self.job_text)?;
         write_str_attr(&f, "program_version", &self.program_version)?;
-        f.new_attr::<u32>().create("format_version")?.write_scalar(&FORMAT_VERSION)?;
+        f.new_attr::<u32>()
+            .create("format_version")?
+            .write_scalar(&FORMAT_VERSION)?;
         write_1d(&f, "x", "nm", &self.x)?;
         write_1d(&f, "k", "1/nm", &self.k)?;
         for (name, s) in &self.series {
             let mut shape = vec![s.frames()];
             shape.extend_from_slice(&s.frame_shape);
-            let ds = f.new_dataset::<f64>().shape(shape.clone()).create(name.as_str())?;
+            let ds = f
+                .new_dataset::<f64>()
+                .shape(shape.clone())
+                .create(name.as_str())?;
             if !s.data.is_empty() {
                 ds.write_raw(&s.data)?;
             }
@@ -126,14 +142,24 @@ impl ResultFile {
         if !path.exists() {
             bail!("{shown}: no such file");
         }
-        let f = hdf5::File::open(path).map_err(|e| anyhow!("{shown}: not a readable HDF5 file ({e})"))?;
-        let file_type = read_str_attr(&f, "file_type").map_err(|_| anyhow!("{shown}: not a signfold result file (no `file_type` attribute)"))?;
+        let f = hdf5::File::open(path)
+            .map_err(|e| anyhow!("{shown}: not a readable HDF5 file ({e})"))?;
+        let file_type = read_str_attr(&f, "file_type").map_err(|_| {
+            anyhow!("{shown}: not a signfold result file (no `file_type` attribute)")
+        })?;
         if file_type != OBSERVABLES_TYPE && file_type != REFERENCE_TYPE {
-            bail!("{shown}: file type `{file_type}` is not a result file (expected `{OBSERVABLES_TYPE}` or `{REFERENCE_TYPE}`)");
+            bail!(
+                "{shown}: file type `{file_type}` is not a result file (expected `{OBSERVABLES_TYPE}` or `{REFERENCE_TYPE}`)"
+            );
         }
-        let version: u32 = f.attr("format_version").and_then(|a| a.read_scalar()).map_err(|_| anyhow!("{shown}: no format_version attribute"))?;
+        let version: u32 = f
+            .attr("format_version")
+            .and_then(|a| a.read_scalar())
+            .map_err(|_| anyhow!("{shown}: no format_version attribute"))?;
         if version != FORMAT_VERSION {
-            bail!("{shown}: format version {version} is not supported (this program reads {FORMAT_VERSION})");
+            bail!(
+                "{shown}: format version {version} is not supported (this program reads {FORMAT_VERSION})"
+            );
         }
         let mut out = ResultFile {
             file_type,
@@ -141,7 +167,10 @@ impl ResultFile {
             program_version: read_str_attr(&f, "program_version").unwrap_or_default(),
             ..Default::default()
         };
-        let need = |name: &str| -> Result<hdf5::Dataset> { f.dataset(name).map_err(|_| anyhow!("{shown}: dataset `{name}` is missing")) };
+        let need = |name: &str| -> Result<hdf5::Dataset> {
+            f.dataset(name)
+                .map_err(|_| anyhow!("{shown}: dataset `{name}` is missing"))
+        };
         out.x = need("x")?.read_raw::<f64>()?;
         out.k = need("k")?.read_raw::<f64>()?;
         let nt = need("time")?.shape().first().copied().unwrap_or(0);
@@ -155,9 +184,18 @@ impl ResultFile {
             };
             let shape = ds.shape();
             let units = read_str_attr(&ds, "units").unwrap_or_default();
-            let data = ds.read_raw::<f64>().map_err(|e| anyhow!("{shown}: dataset `{name}` cannot be read ({e})"))?;
-            if shape.len() >= 1 && shape[0] == nt && (shape.len() > 1 || is_series_name(&name)) {
-                out.series.insert(name, Series { units, frame_shape: shape[1..].to_vec(), data });
+            let data = ds
+                .read_raw::<f64>()
+                .map_err(|e| anyhow!("{shown}: dataset `{name}` cannot be read ({e})"))?;
+            if !shape.is_empty() && shape[0] == nt && (shape.len() > 1 || is_series_name(&name)) {
+                out.series.insert(
+                    name,
+                    Series {
+                        units,
+                        frame_shape: shape[1..].to_vec(),
+                        data,
+                    },
+                );
             } else {
                 out.records.insert(name, (units, data));
             }
@@ -190,8 +228,12 @@ fn write_1d(g: &hdf5::Group, name: &str, units: &str, v: &[f64]) -> Result<hdf5:
 
 /// Write a variable-length UTF-8 string attribute.
 pub fn write_str_attr(loc: &hdf5::Location, name: &str, value: &str) -> Result<()> {
-    let v: hdf5::types::VarLenUnicode = value.parse().map_err(|e| anyhow!("attribute {name}: {e:?}"))?;
-    loc.new_attr::<hdf5::types::VarLenUnicode>().create(name)?.write_scalar(&v)?;
+    let v: hdf5::types::VarLenUnicode = value
+        .parse()
+        .map_err(|e| anyhow!("attribute {name}: {e:?}"))?;
+    loc.new_attr::<hdf5::types::VarLenUnicode>()
+        .create(name)?
+        .write_scalar(&v)?;
     Ok(())
 }
 
