@@ -60,6 +60,12 @@ enum Command {
         set: Vec<String>,
         #[arg(long)]
         force: bool,
+        /// Grid points per axis (default: chosen from the job).
+        #[arg(long)]
+        points: Option<usize>,
+        /// Largest time step, fs (default: chosen from the job).
+        #[arg(long, value_name = "FS")]
+        dt: Option<f64>,
     },
     /// Compare two result files observable by observable.
     Compare {
@@ -156,6 +162,18 @@ fn configure_threads(threads: Option<usize>) -> anyhow::Result<()> {
 }
 
 fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
+    // The serial tools run on rank 0 only, so that under mpirun they neither race on their
+    // output files nor print twice.
+    let serial = matches!(
+        cmd,
+        Command::Reference { .. }
+            | Command::Compare { .. }
+            | Command::Plot { .. }
+            | Command::Inspect { .. }
+    );
+    if serial && !world.is_root() {
+        return Ok(ExitCode::SUCCESS);
+    }
     match cmd {
         Command::Check {
             job,
@@ -202,6 +220,28 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             print!("{}", signfold::inspect::inspect(&file)?);
             Ok(ExitCode::SUCCESS)
         }
-        _ => anyhow::bail!("not implemented yet"),
+        Command::Reference {
+            job,
+            out,
+            set,
+            force,
+            points,
+            dt,
+        } => {
+            let opts = signfold::reference::ReferenceOptions {
+                points_per_axis: points,
+                dt,
+            };
+            signfold::reference::command(&job, &out, &set, force, &opts)?;
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Compare { a, b, tolerance } => {
+            let ok = signfold::compare::compare(&a, &b, tolerance)?;
+            Ok(if ok {
+                ExitCode::SUCCESS
+            } else {
+                ExitCode::from(1)
+            })
+        }
     }
 }
