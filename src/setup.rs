@@ -84,6 +84,10 @@ impl Setup {
         let one_body = OneBody::from_job(&job.potentials, mesh_dx, mass, &loaded.base_dir)
             .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
         let pair = PairPotential::from_job(&job.pair);
+        let orbitals: Vec<Gaussian> = job.orbitals.iter().map(Gaussian::from).collect();
+        // Fail early, naming the file, when the (anti)symmetrised state does not exist.
+        NBodyWigner::new(&orbitals, job.particles.statistics)
+            .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
         let lc = job.numerics.coherence_length;
         let rolloff = job.numerics.rolloff.unwrap_or(lc / 8.0);
         let dk = std::f64::consts::PI / lc;
@@ -117,7 +121,7 @@ impl Setup {
             n,
             stats: job.particles.statistics,
             mass,
-            orbitals: job.orbitals.iter().map(Gaussian::from).collect(),
+            orbitals,
             lo,
             hi,
             boundary: job.domain.boundary,
