@@ -137,6 +137,11 @@ pub struct Report {
     /// Occupied cells on this rank and 64-bit words this rank sent.
     pub local_cells: u64,
     pub words_sent: u64,
+    /// Wall seconds of this rank in: keys and sort; the exchanges with the owners; the
+    /// selection of survivors.
+    pub binning_s: f64,
+    pub reduction_s: f64,
+    pub selection_s: f64,
 }
 
 const SELECT_LOCAL: u64 = 1;
@@ -153,6 +158,7 @@ pub fn annihilate(
     let ranks = comm.size();
     let mut before = [store.len() as i64];
     comm.sum_i64(&mut before);
+    let t_start = std::time::Instant::now();
     // 1. Keys, sorted; runs of equal keys are the occupied cells.
     let mut order: Vec<(u128, u32)> = (0..store.len())
         .into_par_iter()
@@ -176,6 +182,7 @@ pub fn annihilate(
         runs.push((key, a, b, plus, minus));
         a = b;
     }
+    let t_binned = std::time::Instant::now();
     // 2. (key, +, −) to owners.
     let mut send = vec![Vec::new(); ranks];
     for &(key, _, _, plus, minus) in &runs {
@@ -230,6 +237,7 @@ pub fn annihilate(
     }
     words += reply.iter().map(|v| v.len() as u64).sum::<u64>();
     let decisions = comm.exchange(&reply);
+    let t_decided = std::time::Instant::now();
     // 4. Holders: drop minority particles; select majority ones locally or ask for a threshold.
     let run_of = |key: u128| {
         runs.binary_search_by(|r| r.0.cmp(&key))
@@ -267,6 +275,7 @@ pub fn annihilate(
         }
     }
     pending.sort_unstable();
+    let t_selected = std::time::Instant::now();
     // 5. Threshold exchange for cells whose majority particles live on several ranks.
     if comm.any(!pending.is_empty()) {
         words += ask.iter().map(|v| v.len() as u64).sum::<u64>();
@@ -361,14 +370,20 @@ pub fn annihilate(
             }
         }
     }
+    let t_thresholds = std::time::Instant::now();
     store.retain(&keep);
+    let t_end = std::time::Instant::now();
     let mut after = [store.len() as i64];
     comm.sum_i64(&mut after);
+    let s = |a: std::time::Instant, b: std::time::Instant| (b - a).as_secs_f64();
     Report {
         before: before[0] as u64,
         after: after[0] as u64,
         local_cells: runs.len() as u64,
         words_sent: words,
+        binning_s: s(t_start, t_binned),
+        reduction_s: s(t_binned, t_decided) + s(t_selected, t_thresholds),
+        selection_s: s(t_decided, t_selected) + s(t_thresholds, t_end),
     }
 }
 

@@ -18,6 +18,11 @@ pub trait Comm {
     /// Words of every rank, in rank order (for small data only).
     fn gather_all(&self, mine: &[u64]) -> Vec<Vec<u64>>;
 
+    /// The MPI communicator for MPI-IO, None without MPI.
+    fn mpi_comm(&self) -> Option<mpi::ffi::MPI_Comm> {
+        None
+    }
+
     fn is_root(&self) -> bool {
         self.rank() == 0
     }
@@ -95,6 +100,9 @@ fn displacements(counts: &[i32]) -> Vec<i32> {
 }
 
 impl Comm for World {
+    fn mpi_comm(&self) -> Option<mpi::ffi::MPI_Comm> {
+        Some(self.world.as_raw())
+    }
     fn rank(&self) -> usize {
         self.world.rank() as usize
     }

@@ -195,6 +195,33 @@ impl Default for Output {
     }
 }
 
+/// When checkpoints are written (at synchronisation times only) and how many are kept.
+#[derive(Deserialize, Serialize, Clone, Debug)]
+#[serde(deny_unknown_fields)]
+pub struct Checkpoints {
+    /// Simulated time between checkpoints, fs (rounded to whole sync steps).
+    pub every: Option<f64>,
+    /// Wall-clock minutes between checkpoints.
+    pub every_minutes: Option<f64>,
+    /// Checkpoints kept in the output directory (the newest ones).
+    #[serde(default = "default_keep")]
+    pub keep: usize,
+}
+
+fn default_keep() -> usize {
+    2
+}
+
+impl Default for Checkpoints {
+    fn default() -> Self {
+        Checkpoints {
+            every: None,
+            every_minutes: None,
+            keep: default_keep(),
+        }
+    }
+}
+
 #[derive(Deserialize, Serialize, Clone, Debug)]
 #[serde(deny_unknown_fields)]
 pub struct Job {
@@ -211,6 +238,8 @@ pub struct Job {
     pub annihilation: Annihilation,
     #[serde(default)]
     pub output: Output,
+    #[serde(default)]
+    pub checkpoint: Checkpoints,
 }
 
 fn one() -> f64 {
@@ -501,6 +530,16 @@ pub fn validate(job: &Job) -> Result<()> {
     }
     if a.cells == CellKind::Relative && n < 2 {
         bail!("annihilation.cells = \"relative\" needs at least 2 particles");
+    }
+    let c = &job.checkpoint;
+    if let Some(t) = c.every {
+        positive("checkpoint.every", t)?;
+    }
+    if let Some(t) = c.every_minutes {
+        positive("checkpoint.every_minutes", t)?;
+    }
+    if c.keep == 0 {
+        bail!("checkpoint.keep: at least 1 checkpoint must be kept");
     }
     let o = &job.output;
     if let Some(t) = o.interval {

@@ -3,6 +3,7 @@
 pub mod advance;
 pub mod annihilate;
 pub mod check;
+pub mod checkpoint;
 pub mod colormap;
 pub mod comm;
 pub mod compare;

@@ -47,7 +47,21 @@ enum Command {
         /// Stop at the first synchronisation time ≥ T (fs).
         #[arg(long, value_name = "T_FS")]
         until: Option<f64>,
+        /// Stop with a checkpoint before this much wall time has passed (HH:MM or HH:MM:SS).
+        #[arg(long, value_name = "HH:MM")]
+        walltime: Option<String>,
         /// rayon threads per rank (default: all cores / ranks on this node).
+        #[arg(long)]
+        threads: Option<usize>,
+    },
+    /// Continue a run from the newest valid checkpoint in DIR, on any number of ranks.
+    Resume {
+        dir: PathBuf,
+        /// Stop again at the first synchronisation time ≥ T (fs).
+        #[arg(long, value_name = "T_FS")]
+        until: Option<f64>,
+        #[arg(long, value_name = "HH:MM")]
+        walltime: Option<String>,
         #[arg(long)]
         threads: Option<usize>,
     },
@@ -196,13 +210,33 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             particles,
             force,
             until,
+            walltime,
             threads,
         } => {
             configure_threads(threads)?;
+            run::install_signals()?;
+            let walltime = collective(walltime.as_deref().map(run::parse_walltime).transpose())?;
             let loaded = collective(job::load(&job, &with_particles(set, particles)))?;
             let setup = collective(Setup::new(&loaded))?;
-            let opts = run::RunOptions { out, force, until };
-            collective(run::run(&setup, &opts, world))?;
+            let opts = run::RunOptions {
+                out,
+                force,
+                until,
+                walltime,
+            };
+            collective(run::run(&loaded, &setup, &opts, world))?;
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Resume {
+            dir,
+            until,
+            walltime,
+            threads,
+        } => {
+            configure_threads(threads)?;
+            run::install_signals()?;
+            let walltime = collective(walltime.as_deref().map(run::parse_walltime).transpose())?;
+            collective(run::resume(&dir, until, walltime, world))?;
             Ok(ExitCode::SUCCESS)
         }
         Command::Plot {

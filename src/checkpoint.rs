@@ -1,0 +1,390 @@
+//! Checkpoints: one HDF5 file per checkpoint, written by all ranks at once through MPI-IO,
+//! atomically (temporary name, flush, rename), with a completeness marker and an
+//! order-independent checksum; read back on any number of ranks.
+//!
+//! Checkpoint of step s = `checkpoint-<s>-results.h5` (the results file as it stood, written
+//! first by rank 0) + `checkpoint-<s>.h5` (particles and run state, renamed into place
+//! last). A checkpoint counts only when both exist and the particle file verifies.
+
+use crate::comm::Comm;
+use crate::job::{self, LoadedJob};
+use crate::observe::Departed;
+use crate::particles::Store;
+use crate::results::{ResultFile, read_str_attr, write_str_attr};
+use crate::rng;
+use crate::run::State;
+use anyhow::{Context, Result, anyhow, bail};
+use ndarray::ArrayView1;
+use std::path::{Path, PathBuf};
+
+pub const CHECKPOINT_TYPE: &str = "signfold-checkpoint";
+pub const CHECKPOINT_FORMAT: u32 = 1;
+
+pub fn particle_path(dir: &Path, step: u64) -> PathBuf {
+    dir.join(format!("checkpoint-{step:010}.h5"))
+}
+
+pub fn results_path(dir: &Path, step: u64) -> PathBuf {
+    dir.join(format!("checkpoint-{step:010}-results.h5"))
+}
+
+/// Steps of the checkpoint particle files in `dir`, newest first.
+pub fn list(dir: &Path) -> Vec<u64> {
+    let mut steps: Vec<u64> = std::fs::read_dir(dir)
+        .map(|rd| {
+            rd.filter_map(|e| e.ok())
+                .filter_map(|e| {
+                    let name = e.file_name().into_string().ok()?;
+                    let num = name.strip_prefix("checkpoint-")?.strip_suffix(".h5")?;
+                    (num.len() == 10).then(|| num.parse().ok()).flatten()
+                })
+                .collect()
+        })
+        .unwrap_or_default();
+    steps.sort_unstable_by(|a, b| b.cmp(a));
+    steps
+}
+
+/// Order-independent checksum of particles: wrapping sum of a hash of each particle.
+fn local_checksum(store: &Store) -> u64 {
+    let mut sum = 0u64;
+    for p in 0..store.len() {
+        let mut words = vec![store.id[p], store.sign[p] as i64 as u64];
+        words.extend(store.xs(p).iter().map(|v| v.to_bits()));
+        words.extend(store.ks(p).iter().map(|v| v.to_bits()));
+        sum = sum.wrapping_add(rng::hash(&words));
+    }
+    sum
+}
+
+fn global_checksum(store: &Store, comm: &dyn Comm) -> u64 {
+    let mut v = [local_checksum(store) as i128];
+    comm.sum_i128(&mut v);
+    v[0] as u64
+}
+
+/// Global offsets: (first particle of this rank, total).
+fn offsets(n_local: usize, comm: &dyn Comm) -> (u64, u64) {
+    let counts: Vec<u64> = comm
+        .gather_all(&[n_local as u64])
+        .into_iter()
+        .map(|v| v[0])
+        .collect();
+    (counts[..comm.rank()].iter().sum(), counts.iter().sum())
+}
+
+fn open_for(comm: &dyn Comm, path: &Path, create: bool) -> hdf5::Result<hdf5::File> {
+    let mut b = hdf5::FileBuilder::new();
+    if let Some(c) = comm.mpi_comm() {
+        b.with_fapl(|p| p.mpio(c, None));
+    }
+    if create { b.create(path) } else { b.open(path) }
+}
+
+/// Everything the run needs to continue bit-identically, besides the particles.
+fn write_state(f: &hdf5::File, st: &State, job: &LoadedJob, time: f64) -> hdf5::Result<()> {
+    write_str_attr(f, "file_type", CHECKPOINT_TYPE)
+        .map_err(|e| hdf5::Error::from(e.to_string().as_str()))?;
+    write_str_attr(f, "job", &job.text).map_err(|e| hdf5::Error::from(e.to_string().as_str()))?;
+    write_str_attr(f, "job_dir", &job.base_dir.to_string_lossy())
+        .map_err(|e| hdf5::Error::from(e.to_string().as_str()))?;
+    write_str_attr(f, "program_version", env!("CARGO_PKG_VERSION"))
+        .map_err(|e| hdf5::Error::from(e.to_string().as_str()))?;
+    f.new_attr::<u32>()
+        .create("format_version")?
+        .write_scalar(&CHECKPOINT_FORMAT)?;
+    f.new_attr::<f64>().create("time")?.write_scalar(&time)?;
+    f.new_attr::<u64>().create("step")?.write_scalar(&st.step)?;
+    f.new_attr::<u64>()
+        .create("initial_count")?
+        .write_scalar(&st.initial_count)?;
+    f.new_attr::<u64>()
+        .create("annihilations")?
+        .write_scalar(&st.annihilations)?;
+    let g = f.create_group("state")?;
+    for (name, v) in [
+        ("s0", &st.s0),
+        ("absorbed_left", &st.gone.left),
+        ("absorbed_right", &st.gone.right),
+        ("lost_momentum", &st.gone.momentum),
+    ] {
+        let ds = g.new_dataset::<i64>().shape([v.len()]).create(name)?;
+        ds.write_raw(v)?;
+    }
+    Ok(())
+}
+
+/// Write checkpoint `st.step` into `dir` (collective). `results` is significant on rank 0.
+/// Keeps the newest `keep` checkpoints. On failure every rank returns an error and the
+/// previous checkpoints are untouched.
+pub fn write(
+    dir: &Path,
+    st: &State,
+    results: &ResultFile,
+    job: &LoadedJob,
+    time: f64,
+    keep: usize,
+    comm: &dyn Comm,
+) -> Result<()> {
+    let root = comm.is_root();
+    let rp = results_path(dir, st.step);
+    let r = if root {
+        results.write_atomic(&rp)
+    } else {
+        Ok(())
+    };
+    crate::run::agree(comm, r).context("checkpoint: writing the results copy")?;
+    let final_path = particle_path(dir, st.step);
+    let tmp = final_path.with_extension("h5.tmp");
+    let (off, total) = offsets(st.store.len(), comm);
+    let checksum = global_checksum(&st.store, comm);
+    let n = st.store.n as u64;
+    let written = (|| -> hdf5::Result<()> {
+        let f = open_for(comm, &tmp, true)?;
+        write_state(&f, st, job, time)?;
+        f.new_attr::<u64>()
+            .create("particles")?
+            .write_scalar(&total)?;
+        f.new_attr::<u64>()
+            .create("coordinates")?
+            .write_scalar(&n)?;
+        f.new_attr::<u64>()
+            .create("checksum")?
+            .write_scalar(&checksum)?;
+        {
+            let g = f.create_group("particles")?;
+            let xs = g
+                .new_dataset::<f64>()
+                .shape([(total * n) as usize])
+                .create("x")?;
+            let ks = g
+                .new_dataset::<f64>()
+                .shape([(total * n) as usize])
+                .create("k")?;
+            let ids = g
+                .new_dataset::<u64>()
+                .shape([total as usize])
+                .create("id")?;
+            let signs = g
+                .new_dataset::<i8>()
+                .shape([total as usize])
+                .create("sign")?;
+            let (a, b) = (off as usize, off as usize + st.store.len());
+            if b > a {
+                let nn = n as usize;
+                xs.write_slice(ArrayView1::from(&st.store.x[..]), a * nn..b * nn)?;
+                ks.write_slice(ArrayView1::from(&st.store.k[..]), a * nn..b * nn)?;
+                ids.write_slice(ArrayView1::from(&st.store.id[..]), a..b)?;
+                signs.write_slice(ArrayView1::from(&st.store.sign[..]), a..b)?;
+            }
+        }
+        f.flush()?;
+        // The completeness marker goes last.
+        f.new_attr::<u8>().create("complete")?.write_scalar(&1u8)?;
+        f.flush()?;
+        f.close()
+    })();
+    let written = written.map_err(|e| anyhow!("checkpoint: cannot write {}: {e}", tmp.display()));
+    let local_failed = written.is_err();
+    if comm.any(local_failed) {
+        let _ = std::fs::remove_file(&tmp);
+        return Err(written.err().unwrap_or_else(|| {
+            anyhow!("checkpoint: another rank could not write {}", tmp.display())
+        }));
+    }
+    let renamed = if root {
+        std::fs::rename(&tmp, &final_path).with_context(|| {
+            format!(
+                "checkpoint: cannot rename {} to {}",
+                tmp.display(),
+                final_path.display()
+            )
+        })
+    } else {
+        Ok(())
+    };
+    crate::run::agree(comm, renamed)?;
+    if root {
+        for old in list(dir).into_iter().skip(keep.max(1)) {
+            let _ = std::fs::remove_file(particle_path(dir, old));
+            let _ = std::fs::remove_file(results_path(dir, old));
+        }
+    }
+    Ok(())
+}
+
+/// A checkpoint read back: the job, the state of this rank's share, the results so far.
+pub struct Restored {
+    pub job: LoadedJob,
+    pub state: State,
+    pub results: ResultFile,
+    pub time: f64,
+}
+
+fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
+    let path = particle_path(dir, step);
+    let shown = path.display().to_string();
+    // Metadata: every rank reads the same and so fails alike.
+    let f = open_for(comm, &path, false)
+        .map_err(|e| anyhow!("{shown}: cannot be opened as HDF5 ({e})"))?;
+    let kind = read_str_attr(&f, "file_type").map_err(|_| anyhow!("{shown}: no file type"))?;
+    if kind != CHECKPOINT_TYPE {
+        bail!("{shown}: not a checkpoint (file type `{kind}`)");
+    }
+    let complete: u8 = f
+        .attr("complete")
+        .and_then(|a| a.read_scalar())
+        .unwrap_or(0);
+    if complete != 1 {
+        bail!("{shown}: incomplete (no completeness marker)");
+    }
+    let a = |name: &str| -> Result<u64> {
+        f.attr(name)
+            .and_then(|a| a.read_scalar())
+            .map_err(|e| anyhow!("{shown}: attribute {name}: {e}"))
+    };
+    let (total, n, checksum) = (a("particles")?, a("coordinates")?, a("checksum")?);
+    let time: f64 = f.attr("time")?.read_scalar()?;
+    let text = read_str_attr(&f, "job")?;
+    let job_dir = read_str_attr(&f, "job_dir").unwrap_or_default();
+    let s = f.group("state")?;
+    let v = |name: &str| -> Result<Vec<i64>> { Ok(s.dataset(name)?.read_raw::<i64>()?) };
+    let (s0, left, right, momentum) = (
+        v("s0")?,
+        v("absorbed_left")?,
+        v("absorbed_right")?,
+        v("lost_momentum")?,
+    );
+    let job = job::from_text(
+        &text,
+        &format!("job stored in {shown}"),
+        PathBuf::from(job_dir),
+        &[],
+    )?;
+    // This rank's slice: reads may fail on some ranks only, so agree before going on.
+    let (p, r) = (comm.size() as u64, comm.rank() as u64);
+    let (from, to) = ((total * r / p) as usize, (total * (r + 1) / p) as usize);
+    let nn = n as usize;
+    let local = (|| -> Result<Store> {
+        let g = f.group("particles")?;
+        let mut store = Store::new(nn);
+        if to > from {
+            let rd = |name: &str, a: usize, b: usize| -> Result<Vec<f64>> {
+                Ok(g.dataset(name)?
+                    .read_slice_1d::<f64, _>(a..b)?
+                    .into_raw_vec_and_offset()
+                    .0)
+            };
+            store.x = rd("x", from * nn, to * nn)?;
+            store.k = rd("k", from * nn, to * nn)?;
+            store.id = g
+                .dataset("id")?
+                .read_slice_1d::<u64, _>(from..to)?
+                .into_raw_vec_and_offset()
+                .0;
+            store.sign = g
+                .dataset("sign")?
+                .read_slice_1d::<i8, _>(from..to)?
+                .into_raw_vec_and_offset()
+                .0;
+        }
+        Ok(store)
+    })();
+    if comm.any(local.is_err()) {
+        return Err(local.err().map_or_else(
+            || anyhow!("{shown}: particle data unreadable on another rank"),
+            |e| anyhow!("{shown}: particle data unreadable ({e})"),
+        ));
+    }
+    let store = local.expect("checked above");
+    if global_checksum(&store, comm) != checksum {
+        bail!("{shown}: checksum mismatch (the particle data are damaged)");
+    }
+    let results = if comm.is_root() {
+        ResultFile::read(&results_path(dir, step))?
+    } else {
+        ResultFile::default()
+    };
+    let state = State {
+        step: a("step")?,
+        store,
+        s0,
+        gone: Departed {
+            left,
+            right,
+            momentum,
+        },
+        initial_count: a("initial_count")?,
+        annihilations: a("annihilations")?,
+    };
+    Ok(Restored {
+        job,
+        state,
+        results,
+        time,
+    })
+}
+
+/// Check the format version of a checkpoint: an incompatible version is refused outright.
+fn check_version(path: &Path) -> Result<()> {
+    let Ok(f) = hdf5::File::open(path) else {
+        return Ok(());
+    };
+    let Ok(v) = f
+        .attr("format_version")
+        .and_then(|a| a.read_scalar::<u32>())
+    else {
+        return Ok(());
+    };
+    if v != CHECKPOINT_FORMAT {
+        bail!(
+            "{}: checkpoint format version {v} is not supported by this program (it reads version {CHECKPOINT_FORMAT}); \
+             resume it with the program version that wrote it",
+            path.display()
+        );
+    }
+    Ok(())
+}
+
+/// The newest valid checkpoint in `dir`; damaged ones are reported (by rank 0) and skipped.
+pub fn newest_valid(dir: &Path, comm: &dyn Comm) -> Result<Restored> {
+    let steps = list(dir);
+    if steps.is_empty() {
+        bail!("{}: no checkpoint found (checkpoint-*.h5)", dir.display());
+    }
+    hdf5::silence_errors(true);
+    for step in steps {
+        let path = particle_path(dir, step);
+        let version = if comm.is_root() {
+            check_version(&path)
+        } else {
+            Ok(())
+        };
+        crate::run::agree(comm, version)?;
+        let results_ok = !comm.is_root() || ResultFile::read(&results_path(dir, step)).is_ok();
+        let attempt = if comm.any(!results_ok) {
+            Err(anyhow!(
+                "{}: its results copy is missing or damaged",
+                results_path(dir, step).display()
+            ))
+        } else {
+            read_one(dir, step, comm)
+        };
+        let failed = comm.any(attempt.is_err());
+        match attempt {
+            Ok(r) if !failed => return Ok(r),
+            Ok(_) => continue,
+            Err(e) => {
+                if comm.is_root() {
+                    eprintln!(
+                        "signfold: checkpoint of step {step} is not usable: {e:#}; trying the previous one"
+                    );
+                }
+            }
+        }
+    }
+    bail!(
+        "{}: no valid checkpoint (all were damaged or incomplete)",
+        dir.display()
+    )
+}
