@@ -81,6 +81,42 @@ fn open_for(comm: &dyn Comm, path: &Path, create: bool) -> hdf5::Result<hdf5::Fi
     if create { b.create(path) } else { b.open(path) }
 }
 
+/// Would a file of `bytes` fit under this process's file-size limit and on the disk?
+fn preflight(dir: &Path, bytes: f64) -> Result<()> {
+    let mut lim = libc::rlimit {
+        rlim_cur: 0,
+        rlim_max: 0,
+    };
+    // SAFETY: getrlimit writes into the struct we pass.
+    if unsafe { libc::getrlimit(libc::RLIMIT_FSIZE, &mut lim) } == 0
+        && lim.rlim_cur != libc::RLIM_INFINITY
+        && (lim.rlim_cur as f64) < bytes
+    {
+        bail!(
+            "cannot write a checkpoint of about {:.1} MiB in {}: the file-size limit (ulimit -f) is {:.1} MiB",
+            bytes / (1u64 << 20) as f64,
+            dir.display(),
+            lim.rlim_cur as f64 / (1u64 << 20) as f64
+        );
+    }
+    let c = std::ffi::CString::new(dir.as_os_str().as_encoded_bytes())
+        .map_err(|_| anyhow!("{}: bad path", dir.display()))?;
+    // SAFETY: statvfs fills the zeroed struct for a valid C string path.
+    let mut v: libc::statvfs = unsafe { std::mem::zeroed() };
+    if unsafe { libc::statvfs(c.as_ptr(), &mut v) } == 0 {
+        let free = v.f_bavail as f64 * v.f_frsize as f64;
+        if free < bytes {
+            bail!(
+                "cannot write a checkpoint of about {:.1} MiB in {}: only {:.1} MiB free on its disk",
+                bytes / (1u64 << 20) as f64,
+                dir.display(),
+                free / (1u64 << 20) as f64
+            );
+        }
+    }
+    Ok(())
+}
+
 /// Everything the run needs to continue bit-identically, besides the particles.
 fn write_state(f: &hdf5::File, st: &State, job: &LoadedJob, time: f64) -> hdf5::Result<()> {
     write_str_attr(f, "file_type", CHECKPOINT_TYPE)
@@ -137,10 +173,42 @@ pub fn write(
     let final_path = particle_path(dir, st.step);
     let tmp = final_path.with_extension("h5.tmp");
     let (off, total) = offsets(st.store.len(), comm);
+    // Parallel HDF5 cannot close a file cleanly after a failed write (its ranks fall out of
+    // step inside H5Fclose), so refuse up front what would fail: a file-size limit or a
+    // disk too small for this checkpoint, checked on every rank.
+    let bytes = total as f64 * (16 * st.store.n + 9) as f64 + (256u64 << 10) as f64;
+    crate::run::agree(comm, preflight(dir, bytes)).context("checkpoint")?;
     let checksum = global_checksum(&st.store, comm);
     let n = st.store.n as u64;
-    let written = (|| -> hdf5::Result<()> {
-        let f = open_for(comm, &tmp, true)?;
+    // Every collective HDF5 call happens on every rank: after each stage the ranks agree on
+    // success, and on failure all of them stop at the same point (closing the file there).
+    let stage = |r: hdf5::Result<()>, what: &str| -> Result<()> {
+        let local =
+            r.map_err(|e| anyhow!("checkpoint: cannot write {} ({what}): {e}", tmp.display()));
+        if comm.any(local.is_err()) {
+            return Err(local.err().unwrap_or_else(|| {
+                anyhow!(
+                    "checkpoint: another rank could not write {} ({what})",
+                    tmp.display()
+                )
+            }));
+        }
+        Ok(())
+    };
+    let fail = |e: anyhow::Error| -> anyhow::Error {
+        if root {
+            let _ = std::fs::remove_file(&tmp);
+        }
+        e
+    };
+    let (f, created) = match open_for(comm, &tmp, true) {
+        Ok(f) => (Some(f), Ok(())),
+        Err(e) => (None, Err(e)),
+    };
+    stage(created, "create").map_err(fail)?;
+    let f = f.expect("created on every rank");
+    let mut sets = None;
+    let meta = (|| -> hdf5::Result<()> {
         write_state(&f, st, job, time)?;
         f.new_attr::<u64>()
             .create("particles")?
@@ -151,47 +219,50 @@ pub fn write(
         f.new_attr::<u64>()
             .create("checksum")?
             .write_scalar(&checksum)?;
-        {
-            let g = f.create_group("particles")?;
-            let xs = g
-                .new_dataset::<f64>()
-                .shape([(total * n) as usize])
-                .create("x")?;
-            let ks = g
-                .new_dataset::<f64>()
-                .shape([(total * n) as usize])
-                .create("k")?;
-            let ids = g
-                .new_dataset::<u64>()
-                .shape([total as usize])
-                .create("id")?;
-            let signs = g
-                .new_dataset::<i8>()
-                .shape([total as usize])
-                .create("sign")?;
-            let (a, b) = (off as usize, off as usize + st.store.len());
-            if b > a {
-                let nn = n as usize;
-                xs.write_slice(ArrayView1::from(&st.store.x[..]), a * nn..b * nn)?;
-                ks.write_slice(ArrayView1::from(&st.store.k[..]), a * nn..b * nn)?;
-                ids.write_slice(ArrayView1::from(&st.store.id[..]), a..b)?;
-                signs.write_slice(ArrayView1::from(&st.store.sign[..]), a..b)?;
-            }
-        }
-        f.flush()?;
-        // The completeness marker goes last.
-        f.new_attr::<u8>().create("complete")?.write_scalar(&1u8)?;
-        f.flush()?;
-        f.close()
+        let g = f.create_group("particles")?;
+        let xs = g
+            .new_dataset::<f64>()
+            .shape([(total * n) as usize])
+            .create("x")?;
+        let ks = g
+            .new_dataset::<f64>()
+            .shape([(total * n) as usize])
+            .create("k")?;
+        let ids = g
+            .new_dataset::<u64>()
+            .shape([total as usize])
+            .create("id")?;
+        let signs = g
+            .new_dataset::<i8>()
+            .shape([total as usize])
+            .create("sign")?;
+        sets = Some((xs, ks, ids, signs));
+        Ok(())
     })();
-    let written = written.map_err(|e| anyhow!("checkpoint: cannot write {}: {e}", tmp.display()));
-    let local_failed = written.is_err();
-    if comm.any(local_failed) {
-        let _ = std::fs::remove_file(&tmp);
-        return Err(written.err().unwrap_or_else(|| {
-            anyhow!("checkpoint: another rank could not write {}", tmp.display())
-        }));
-    }
+    stage(meta, "metadata").map_err(fail)?;
+    let (xs, ks, ids, signs) = sets.expect("created with the metadata");
+    let data = (|| -> hdf5::Result<()> {
+        let (a, b) = (off as usize, off as usize + st.store.len());
+        if b > a {
+            let nn = n as usize;
+            xs.write_slice(ArrayView1::from(&st.store.x[..]), a * nn..b * nn)?;
+            ks.write_slice(ArrayView1::from(&st.store.k[..]), a * nn..b * nn)?;
+            ids.write_slice(ArrayView1::from(&st.store.id[..]), a..b)?;
+            signs.write_slice(ArrayView1::from(&st.store.sign[..]), a..b)?;
+        }
+        Ok(())
+    })();
+    stage(data, "particle data").map_err(fail)?;
+    drop((xs, ks, ids, signs));
+    stage(f.flush(), "flush").map_err(fail)?;
+    // The completeness marker goes last.
+    let marker = f
+        .new_attr::<u8>()
+        .create("complete")
+        .and_then(|a| a.write_scalar(&1u8))
+        .and_then(|_| f.flush());
+    stage(marker, "completeness marker").map_err(fail)?;
+    stage(f.close(), "close").map_err(fail)?;
     let renamed = if root {
         std::fs::rename(&tmp, &final_path).with_context(|| {
             format!(

@@ -107,6 +107,7 @@ enum Command {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    run::ignore_file_size_signal();
     let Some(universe) = mpi::initialize() else {
         eprintln!("signfold: error: MPI could not be initialised");
         return ExitCode::from(2);

@@ -125,8 +125,8 @@ pub fn prepare_out(dir: &Path, force: bool) -> Result<()> {
     Ok(())
 }
 
-/// Make a rank-0 outcome collective: every rank fails when rank 0 failed, so no rank is
-/// left waiting in a collective call.
+/// Make a local outcome collective: every rank fails when any rank failed (a failing rank
+/// keeps its own message), so no rank is left waiting in a collective call.
 pub fn agree(comm: &dyn Comm, r: Result<()>) -> Result<()> {
     let failed = comm.any(r.is_err());
     match r {
@@ -179,8 +179,7 @@ const P_BOOKKEEPING: usize = 8;
 static STOP: std::sync::OnceLock<std::sync::Arc<std::sync::atomic::AtomicBool>> =
     std::sync::OnceLock::new();
 
-/// Install the stop signals and ignore SIGXFSZ (so that a file-size limit makes writes fail
-/// with an error instead of killing the process). Called once by the command line.
+/// Install the stop signals. Called once by the command line.
 pub fn install_signals() -> Result<()> {
     use signal_hook::consts::{SIGINT, SIGTERM, SIGUSR1};
     let flag = std::sync::Arc::new(std::sync::atomic::AtomicBool::new(false));
@@ -188,12 +187,17 @@ pub fn install_signals() -> Result<()> {
     for sig in [SIGUSR1, SIGTERM, SIGINT] {
         signal_hook::flag::register(sig, flag.clone())?;
     }
+    let _ = STOP.set(flag);
+    Ok(())
+}
+
+/// Ignore SIGXFSZ, so that a file-size limit makes writes fail with an error instead of
+/// killing the process. Called first thing, before MPI starts.
+pub fn ignore_file_size_signal() {
     // SAFETY: setting a signal disposition to SIG_IGN has no other effect.
     unsafe {
         libc::signal(libc::SIGXFSZ, libc::SIG_IGN);
     }
-    let _ = STOP.set(flag);
-    Ok(())
 }
 
 fn stop_requested() -> bool {
@@ -348,6 +352,14 @@ fn drive(
     };
     if fresh {
         observe(&st, &mut out, &mut timers);
+        let t0 = Instant::now();
+        let written = if root {
+            out.write_atomic(&obs_path)
+        } else {
+            Ok(())
+        };
+        agree(comm, written)?;
+        timers.add(P_OUTPUT, t0);
     }
     let threshold = (setup.trigger * st.initial_count as f64) as u64;
     let stop_step = match opts.until {
