@@ -1,0 +1,125 @@
+//! Helpers shared by the benches: job loading, per-sample timing records, the machine
+//! description and the CSV summaries under `scaling-results/`.
+#![allow(dead_code)]
+
+use signfold::job;
+use signfold::particles::Store;
+use signfold::setup::Setup;
+use std::cell::RefCell;
+use std::collections::BTreeMap;
+use std::path::PathBuf;
+use std::time::Duration;
+
+/// Criterion settings kept short: the machine is shared.
+pub fn criterion() -> criterion::Criterion {
+    criterion::Criterion::default()
+        .sample_size(10)
+        .warm_up_time(Duration::from_secs(1))
+        .measurement_time(Duration::from_secs(5))
+        .without_plots()
+        .configure_from_args()
+}
+
+pub fn root() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+/// Setup of a demo job in `jobs/`, with `--set`-style overrides.
+pub fn setup(file: &str, overrides: &[String]) -> Setup {
+    let path = root().join("jobs").join(file);
+    let text = std::fs::read_to_string(&path).expect("demo job readable");
+    let loaded = job::from_text(&text, file, root().join("jobs"), overrides).expect("valid job");
+    Setup::new(&loaded).expect("setup builds")
+}
+
+/// A single-thread rayon pool: per-core figures.
+pub fn one_thread() -> rayon::ThreadPool {
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build()
+        .expect("thread pool")
+}
+
+/// Seconds per iteration of every sample criterion took, by bench name. Criterion's
+/// measurement phase calls the routine once per sample after its warm-up calls, so the
+/// last `sample_size` entries are the measured samples.
+#[derive(Default)]
+pub struct Record(RefCell<BTreeMap<String, Vec<f64>>>);
+
+impl Record {
+    pub fn push(&self, name: &str, total: Duration, iters: u64) {
+        self.0
+            .borrow_mut()
+            .entry(name.to_string())
+            .or_default()
+            .push(total.as_secs_f64() / iters.max(1) as f64);
+    }
+
+    /// Median over the last `samples` entries, when criterion measured (not in `--test`
+    /// mode or when filtered out).
+    pub fn median(&self, name: &str, samples: usize) -> Option<f64> {
+        let map = self.0.borrow();
+        let v = map.get(name)?;
+        if v.len() < samples {
+            return None;
+        }
+        let mut last = v[v.len() - samples..].to_vec();
+        last.sort_by(f64::total_cmp);
+        let m = last.len();
+        Some(if m % 2 == 1 {
+            last[m / 2]
+        } else {
+            0.5 * (last[m / 2 - 1] + last[m / 2])
+        })
+    }
+}
+
+/// Samples criterion takes per bench (see [`criterion`]).
+pub const SAMPLES: usize = 10;
+
+/// CPU model, core count and memory from /proc.
+pub fn machine() -> String {
+    let cpu = std::fs::read_to_string("/proc/cpuinfo").unwrap_or_default();
+    let model = cpu
+        .lines()
+        .find(|l| l.starts_with("model name"))
+        .and_then(|l| l.split_once(':'))
+        .map_or("unknown CPU".to_string(), |(_, v)| v.trim().to_string());
+    let cores = std::thread::available_parallelism().map_or(0, |n| n.get());
+    let gib = signfold::setup::machine_memory() / (1u64 << 30) as f64;
+    format!("{model}, {cores} cores, {gib:.0} GiB")
+}
+
+/// Write `scaling-results/NAME` (header line, then rows) and say where.
+pub fn write_csv(name: &str, header: &str, rows: &[String]) {
+    let dir = root().join("scaling-results");
+    std::fs::create_dir_all(&dir).expect("scaling-results/ writable");
+    let path = dir.join(name);
+    let mut text = format!("{header}\n");
+    for r in rows {
+        text += r;
+        text.push('\n');
+    }
+    std::fs::write(&path, text).expect("summary written");
+    println!("summary: {}", path.display());
+}
+
+/// FNV-1a over every bit of a store: equal before and after a change to the hot loops
+/// means the engine's output did not change.
+pub fn fingerprint(s: &Store) -> u64 {
+    let mut h = 0xcbf2_9ce4_8422_2325u64;
+    let mut eat = |w: u64| {
+        h ^= w;
+        h = h.wrapping_mul(0x0100_0000_01b3);
+    };
+    for v in s.x.iter().chain(&s.k) {
+        eat(v.to_bits());
+    }
+    for &i in &s.id {
+        eat(i);
+    }
+    for &g in &s.sign {
+        eat(g as u64);
+    }
+    h
+}
