@@ -8,8 +8,9 @@
 //! - `kernel-events`: `advance` with the soft-Coulomb pair kernel
 //!   (jobs/fermion-pair-coulomb.toml), thinning candidates and generation events.
 //!
-//! All three run in a one-thread rayon pool. Medians and ratios go to
-//! `scaling-results/bench-advance.csv`. `SIGNFOLD_BENCH_PARTICLES` sets the store size
+//! All run in a one-thread rayon pool. After criterion's own report, the cases run again in
+//! interleaved rounds (the machine is shared and noisy); those medians and their ratios go
+//! to `scaling-results/bench-advance.csv`. `SIGNFOLD_BENCH_PARTICLES` sets the store size
 //! (default 10⁶).
 
 mod support;
@@ -22,9 +23,11 @@ use signfold::run;
 use signfold::units;
 use std::hint::black_box;
 use std::time::{Duration, Instant};
-use support::Record;
 
 /// x ← x + v·dt into `dst` (same layout, preallocated), copying k, id and sign.
+/// Interleaved rounds behind the CSV summary.
+const ROUNDS: usize = 25;
+
 fn plain_pass(src: &Store, dst: &mut Store, dt: f64, mass: f64) {
     for ((xo, ko), (&xi, &ki)) in dst
         .x
@@ -67,14 +70,12 @@ fn main() {
     let (state, _) = run::initial_state(&free, &Solo).expect("initial particles");
     let store = state.store;
     let n_in = store.len();
-    let mut dst = store.clone();
     let pool = support::one_thread();
-    let record = Record::default();
 
-    // Outputs of one interval: particle counts and a fingerprint of the free advance
-    // (unchanged by any change to the hot loop that keeps behaviour bit-identical).
-    let (out_free, tally_free) = pool.install(|| advance(&free, &store, 0));
-    let (out_coul, tally_coul) = pool.install(|| advance(&coulomb, &store, 0));
+    // Outputs of one interval: particle counts and fingerprints (unchanged by any change to
+    // the hot loop that keeps behaviour bit-identical).
+    let (out_free, _) = pool.install(|| advance(&free, &store, 0));
+    let (out_coul, tally) = pool.install(|| advance(&coulomb, &store, 0));
     println!(
         "store: {n_in} particles (N = 2, {} B each); Γ_max·dt = {:.4} with the pair kernel",
         Store::bytes_per_particle(2),
@@ -85,92 +86,80 @@ fn main() {
         out_free.len(),
         support::fingerprint(&out_free),
         out_coul.len(),
-        tally_coul.candidates,
-        tally_coul.events,
+        tally.candidates,
+        tally.events,
         support::fingerprint(&out_coul)
     );
-    let _ = tally_free;
-    let outs = [
-        ("plain-pass", n_in),
-        ("plain-pass-alloc", n_in),
-        ("free", out_free.len()),
-        ("kernel-events", out_coul.len()),
-    ];
+    let outs = [n_in, n_in, out_free.len(), out_coul.len()];
     drop((out_free, out_coul));
+
+    // The cases; each returns the time of its measured part.
+    let mut dst = store.clone();
+    let mut plain = || {
+        let t = Instant::now();
+        plain_pass(black_box(&store), &mut dst, free.dt, free.mass);
+        black_box(&dst);
+        t.elapsed()
+    };
+    let mut plain_alloc = || {
+        let t = Instant::now();
+        let out = plain_pass_alloc(black_box(&store), free.dt, free.mass);
+        let d = t.elapsed();
+        drop(black_box(out));
+        d
+    };
+    let timed_advance = |setup| {
+        let t = Instant::now();
+        let out = pool.install(|| advance(setup, black_box(&store), 0));
+        let d = t.elapsed();
+        drop(black_box(out));
+        d
+    };
+    let mut adv_free = || timed_advance(&free);
+    let mut adv_kernel = || timed_advance(&coulomb);
+    let names = ["plain-pass", "plain-pass-alloc", "free", "kernel-events"];
+    let mut cases: [&mut dyn FnMut() -> Duration; 4] =
+        [&mut plain, &mut plain_alloc, &mut adv_free, &mut adv_kernel];
 
     let mut c = support::criterion();
     {
         let mut g = c.benchmark_group("advance");
         g.throughput(criterion::Throughput::Elements(n_in as u64));
-        g.bench_function(BenchmarkId::from_parameter("plain-pass"), |b| {
-            b.iter_custom(|iters| {
-                let t = Instant::now();
-                for _ in 0..iters {
-                    plain_pass(black_box(&store), &mut dst, free.dt, free.mass);
-                    black_box(&dst);
-                }
-                let d = t.elapsed();
-                record.push("plain-pass", d, iters);
-                d
-            })
-        });
-        g.bench_function(BenchmarkId::from_parameter("plain-pass-alloc"), |b| {
-            b.iter_custom(|iters| {
-                let mut d = Duration::ZERO;
-                for _ in 0..iters {
-                    let t = Instant::now();
-                    let out = plain_pass_alloc(black_box(&store), free.dt, free.mass);
-                    d += t.elapsed();
-                    drop(black_box(out));
-                }
-                record.push("plain-pass-alloc", d, iters);
-                d
-            })
-        });
-        for (name, setup) in [("free", &free), ("kernel-events", &coulomb)] {
+        for (name, case) in names.iter().zip(cases.iter_mut()) {
             g.bench_function(BenchmarkId::from_parameter(name), |b| {
-                b.iter_custom(|iters| {
-                    let mut d = Duration::ZERO;
-                    for _ in 0..iters {
-                        let t = Instant::now();
-                        let out = pool.install(|| advance(setup, black_box(&store), 0));
-                        d += t.elapsed();
-                        drop(black_box(out));
-                    }
-                    record.push(name, d, iters);
-                    d
-                })
+                b.iter_custom(|iters| (0..iters).map(|_| case()).sum())
             });
         }
         g.finish();
     }
     c.final_summary();
+    if support::test_mode() {
+        return;
+    }
 
-    let medians: Vec<Option<f64>> = outs
-        .iter()
-        .map(|(name, _)| record.median(name, support::SAMPLES))
-        .collect();
-    let Some(plain) = medians[0] else {
-        return; // not measured (test mode or filtered): no summary
-    };
+    // The summary: interleaved rounds, so that the ratios compare like with like.
+    let medians = support::interleaved(ROUNDS, &mut cases);
+    let (plain, plain_alloc) = (medians[0], medians[1]);
     let mut rows = Vec::new();
-    for ((name, out), m) in outs.iter().zip(&medians) {
-        let Some(m) = m else { continue };
+    println!("interleaved medians of {ROUNDS} rounds, one thread:");
+    for ((name, out), m) in names.iter().zip(outs).zip(&medians) {
         rows.push(format!(
-            "{name},{n_in},{out},1,{m:.6},{:.4e},{:.3}",
+            "{name},{n_in},{out},1,{m:.6},{:.4e},{:.3},{:.3}",
             n_in as f64 / m,
-            m / plain
+            m / plain,
+            m / plain_alloc
         ));
         println!(
-            "{name:>14}: median {:8.2} ms, {:.3e} particles/s/core, {:.2}× the plain pass",
+            "{name:>17}: {:8.2} ms, {:.3e} particles/s/core, {:5.2}× plain pass, {:5.2}× plain pass into a new store",
             m * 1e3,
             n_in as f64 / m,
-            m / plain
+            m / plain,
+            m / plain_alloc
         );
     }
     support::write_csv(
         "bench-advance.csv",
-        "case,particles_in,particles_out,threads,median_seconds,particles_in_per_second_per_core,ratio_to_plain_pass",
+        "case,particles_in,particles_out,threads,median_seconds,particles_in_per_second_per_core,ratio_to_plain_pass,ratio_to_plain_pass_alloc",
         &rows,
     );
     println!("machine: {}", support::machine());

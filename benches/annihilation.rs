@@ -4,8 +4,9 @@
 //!
 //! The store is that of jobs/fermion-pair-coulomb.toml (relative cells, exchange-merged)
 //! after a few intervals of advance without annihilation, so that the signed initial state
-//! and the children of generation events share cells of both signs. Medians and the ratio
-//! go to `scaling-results/bench-annihilation.csv`. `SIGNFOLD_BENCH_PARTICLES` sets the
+//! and the children of generation events share cells of both signs. After criterion's own
+//! report, both cases run again in interleaved rounds (the machine is shared and noisy);
+//! those medians and the ratio go to `scaling-results/bench-annihilation.csv`. `SIGNFOLD_BENCH_PARTICLES` sets the
 //! store size (default 10⁷).
 
 mod support;
@@ -19,9 +20,11 @@ use signfold::rng::Stream;
 use signfold::run;
 use std::hint::black_box;
 use std::time::{Duration, Instant};
-use support::Record;
 
+/// Intervals of advance (at least) before the store is cut to size.
 const INTERVALS: u64 = 4;
+/// Interleaved rounds behind the CSV summary.
+const ROUNDS: usize = 7;
 
 fn main() {
     let target: usize = std::env::var("SIGNFOLD_BENCH_PARTICLES")
@@ -61,52 +64,48 @@ fn main() {
     let mut rs = Stream::seed_from_u64(1);
     let keys: Vec<u64> = (0..n).map(|_| rs.random()).collect();
     let pool = support::one_thread();
-    let record = Record::default();
+
+    // The cases; each returns the time of its measured part (the copy of the input is not).
+    let mut sort = || {
+        let mut v = keys.clone();
+        let t = Instant::now();
+        v.sort_unstable();
+        let d = t.elapsed();
+        black_box(&v);
+        d
+    };
+    let mut ann = || {
+        let mut s = store.clone();
+        let t = Instant::now();
+        let r = pool.install(|| annihilate(&setup, &mesh, &mut s, step, &Solo));
+        let d = t.elapsed();
+        black_box((r, &s));
+        d
+    };
+    let names = ["sort-u64", "annihilate"];
+    let mut cases: [&mut dyn FnMut() -> Duration; 2] = [&mut sort, &mut ann];
 
     let mut c = support::criterion();
     {
         let mut g = c.benchmark_group("annihilation");
         g.throughput(criterion::Throughput::Elements(n as u64));
-        g.bench_function(BenchmarkId::from_parameter("sort-u64"), |b| {
-            b.iter_custom(|iters| {
-                let mut d = Duration::ZERO;
-                for _ in 0..iters {
-                    let mut v = keys.clone();
-                    let t = Instant::now();
-                    v.sort_unstable();
-                    d += t.elapsed();
-                    black_box(&v);
-                }
-                record.push("sort-u64", d, iters);
-                d
-            })
-        });
-        g.bench_function(BenchmarkId::from_parameter("annihilate"), |b| {
-            b.iter_custom(|iters| {
-                let mut d = Duration::ZERO;
-                for _ in 0..iters {
-                    let mut s = store.clone();
-                    let t = Instant::now();
-                    let r = pool.install(|| annihilate(&setup, &mesh, &mut s, step, &Solo));
-                    d += t.elapsed();
-                    black_box((r, &s));
-                }
-                record.push("annihilate", d, iters);
-                d
-            })
-        });
+        for (name, case) in names.iter().zip(cases.iter_mut()) {
+            g.bench_function(BenchmarkId::from_parameter(name), |b| {
+                b.iter_custom(|iters| (0..iters).map(|_| case()).sum())
+            });
+        }
         g.finish();
     }
     c.final_summary();
+    if support::test_mode() {
+        return;
+    }
 
-    let (Some(sort), Some(ann)) = (
-        record.median("sort-u64", support::SAMPLES),
-        record.median("annihilate", support::SAMPLES),
-    ) else {
-        return; // not measured (test mode or filtered): no summary
-    };
+    // The summary: interleaved rounds, so that the ratio compares like with like.
+    let m = support::interleaved(ROUNDS, &mut cases);
+    let (sort, ann) = (m[0], m[1]);
     let rows = [
-        format!("sort-u64,{n},{n},{n},1,{sort:.6},1.000"),
+        format!("sort-u64,{n},{n},,1,{sort:.6},1.000"),
         format!(
             "annihilate,{n},{},{},1,{ann:.6},{:.3}",
             rep.after,
@@ -115,7 +114,7 @@ fn main() {
         ),
     ];
     println!(
-        "sort_unstable {:.1} ms, annihilate {:.1} ms: ratio {:.2}",
+        "interleaved medians of {ROUNDS} rounds, one thread: sort_unstable {:.1} ms, annihilate {:.1} ms: ratio {:.2}",
         sort * 1e3,
         ann * 1e3,
         ann / sort

@@ -5,8 +5,6 @@
 use signfold::job;
 use signfold::particles::Store;
 use signfold::setup::Setup;
-use std::cell::RefCell;
-use std::collections::BTreeMap;
 use std::path::PathBuf;
 use std::time::Duration;
 
@@ -40,42 +38,36 @@ pub fn one_thread() -> rayon::ThreadPool {
         .expect("thread pool")
 }
 
-/// Seconds per iteration of every sample criterion took, by bench name. Criterion's
-/// measurement phase calls the routine once per sample after its warm-up calls, so the
-/// last `sample_size` entries are the measured samples.
-#[derive(Default)]
-pub struct Record(RefCell<BTreeMap<String, Vec<f64>>>);
-
-impl Record {
-    pub fn push(&self, name: &str, total: Duration, iters: u64) {
-        self.0
-            .borrow_mut()
-            .entry(name.to_string())
-            .or_default()
-            .push(total.as_secs_f64() / iters.max(1) as f64);
-    }
-
-    /// Median over the last `samples` entries, when criterion measured (not in `--test`
-    /// mode or when filtered out).
-    pub fn median(&self, name: &str, samples: usize) -> Option<f64> {
-        let map = self.0.borrow();
-        let v = map.get(name)?;
-        if v.len() < samples {
-            return None;
+/// Medians (seconds) of `rounds` interleaved runs of every case: round r runs all cases
+/// once, starting at case r mod len, so that slow phases of a shared machine hit every
+/// case alike and the ratios of medians stay meaningful. Each case returns the time of its
+/// measured part.
+pub fn interleaved(rounds: usize, cases: &mut [&mut dyn FnMut() -> Duration]) -> Vec<f64> {
+    let m = cases.len();
+    let mut times = vec![Vec::with_capacity(rounds); m];
+    for r in 0..rounds {
+        for j in 0..m {
+            let c = (r + j) % m;
+            times[c].push((cases[c])().as_secs_f64());
         }
-        let mut last = v[v.len() - samples..].to_vec();
-        last.sort_by(f64::total_cmp);
-        let m = last.len();
-        Some(if m % 2 == 1 {
-            last[m / 2]
-        } else {
-            0.5 * (last[m / 2 - 1] + last[m / 2])
-        })
+    }
+    times.into_iter().map(median).collect()
+}
+
+pub fn median(mut v: Vec<f64>) -> f64 {
+    v.sort_by(f64::total_cmp);
+    let m = v.len();
+    if m % 2 == 1 {
+        v[m / 2]
+    } else {
+        0.5 * (v[m / 2 - 1] + v[m / 2])
     }
 }
 
-/// Samples criterion takes per bench (see [`criterion`]).
-pub const SAMPLES: usize = 10;
+/// True when the bench binary runs as a test (`cargo test --benches`): run each case once.
+pub fn test_mode() -> bool {
+    std::env::args().any(|a| a == "--test")
+}
 
 /// CPU model, core count and memory from /proc.
 pub fn machine() -> String {
