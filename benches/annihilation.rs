@@ -49,10 +49,12 @@ fn main() {
     let minus = store.sign.iter().filter(|&&s| s < 0).count();
     let mut probe = store.clone();
     let rep = annihilate(&setup, &mesh, &mut probe, step, &Solo);
+    // Unchanged by any change to annihilate that keeps its behaviour bit-identical.
+    let print = support::fingerprint(&probe);
     drop(probe);
     println!(
         "store: {} particles after {step} intervals ({:.1} % negative), built in {:.1} s; \
-         annihilation keeps {} in {} occupied cells ({:.1} % cancelled)",
+         annihilation keeps {} in {} occupied cells ({:.1} % cancelled), fingerprint {print:016x}",
         store.len(),
         100.0 * minus as f64 / store.len() as f64,
         t0.elapsed().as_secs_f64(),
