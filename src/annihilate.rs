@@ -324,6 +324,7 @@ pub fn annihilate(
             let below = cell.iter().filter(|e| e.1 < threshold).count();
             let mut ties_left = quota - below;
             let mut ranks_here: Vec<usize> = cell.iter().map(|e| e.2).collect();
+            ranks_here.sort_unstable();
             ranks_here.dedup();
             for r in ranks_here {
                 let ties_on_r = cell.iter().filter(|e| e.2 == r && e.1 == threshold).count();
