@@ -150,11 +150,30 @@ fn rates(
 }
 
 /// Fly one particle (and, through `stack`, its descendants) to the end of interval
-/// `interval`, pushing survivors into `out`.
-fn fly(
+/// `interval`, pushing survivors into `out`: the start particle first, then its
+/// descendants last-in first-out. `start` is flown in place. `FREE`: no drift force
+/// (a separate instance, so that the free flight computes nothing of the force).
+fn fly<const FREE: bool>(
     setup: &Setup,
     interval: u64,
-    start: Flying,
+    start: &mut Flying,
+    out: &mut Store,
+    tally: &mut Tally,
+    stack: &mut Vec<Flying>,
+) {
+    flight::<FREE>(setup, interval, start, out, tally, stack);
+    while let Some(mut p) = stack.pop() {
+        flight::<FREE>(setup, interval, &mut p, out, tally, stack);
+    }
+}
+
+/// Fly particle `p` in place to the end of the interval (or until it leaves), pushing its
+/// children onto `stack` and, if it survives, itself into `out`.
+#[inline]
+fn flight<const FREE: bool>(
+    setup: &Setup,
+    interval: u64,
+    p: &mut Flying,
     out: &mut Store,
     tally: &mut Tally,
     stack: &mut Vec<Flying>,
@@ -163,90 +182,88 @@ fn fly(
     let dt = setup.dt;
     let gmax = setup.gamma_max;
     let force = setup.one_body.force;
-    stack.push(start);
-    'particles: while let Some(mut p) = stack.pop() {
-        let group = rng::group_of(p.id) as usize;
-        let mut rs = rng::stream(&[setup.seed, tag::FLIGHT, p.id, interval]);
-        let mut births = 0u64;
-        loop {
-            let next = if gmax > 0.0 {
-                let u: f64 = rs.random();
-                (p.tau - (1.0 - u).ln() / gmax).min(dt)
+    let group = rng::group_of(p.id) as usize;
+    // Without kernel events no random number is drawn: seed the stream only when needed.
+    let mut rs = (gmax > 0.0).then(|| rng::stream(&[setup.seed, tag::FLIGHT, p.id, interval]));
+    let mut births = 0u64;
+    loop {
+        let next = if let Some(rs) = rs.as_mut() {
+            let u: f64 = rs.random();
+            (p.tau - (1.0 - u).ln() / gmax).min(dt)
+        } else {
+            dt
+        };
+        let h = next - p.tau;
+        for i in 0..n {
+            let (xi, ki) = if FREE {
+                (
+                    p.x[i] + crate::units::velocity(p.k[i], setup.mass) * h,
+                    p.k[i],
+                )
             } else {
-                dt
+                force.fly(p.x[i], p.k[i], h, setup.mass)
             };
-            let h = next - p.tau;
-            for i in 0..n {
-                let (xi, ki) = if force.is_zero() {
-                    (
-                        p.x[i] + crate::units::velocity(p.k[i], setup.mass) * h,
-                        p.k[i],
-                    )
-                } else {
-                    force.fly(p.x[i], p.k[i], h, setup.mass)
-                };
-                p.x[i] = xi;
-                p.k[i] = ki;
-            }
-            p.tau = next;
-            for i in 0..n {
-                match boundary(setup, &mut p.x[i], &mut p.k[i]) {
-                    Fate::Inside => {}
-                    Fate::Left => {
-                        tally.absorbed_left[group] += p.sign as i64;
-                        continue 'particles;
-                    }
-                    Fate::Right => {
-                        tally.absorbed_right[group] += p.sign as i64;
-                        continue 'particles;
-                    }
+            p.x[i] = xi;
+            p.k[i] = ki;
+        }
+        p.tau = next;
+        for i in 0..n {
+            match boundary(setup, &mut p.x[i], &mut p.k[i]) {
+                Fate::Inside => {}
+                Fate::Left => {
+                    tally.absorbed_left[group] += p.sign as i64;
+                    return;
+                }
+                Fate::Right => {
+                    tally.absorbed_right[group] += p.sign as i64;
+                    return;
                 }
             }
-            if !force.is_zero() && p.k[..n].iter().any(|k| k.abs() > setup.k_max) {
-                tally.lost_momentum[group] += p.sign as i64;
-                continue 'particles;
+        }
+        if !FREE && p.k[..n].iter().any(|k| k.abs() > setup.k_max) {
+            tally.lost_momentum[group] += p.sign as i64;
+            return;
+        }
+        if next >= dt {
+            out.push(&p.x[..n], &p.k[..n], p.id, p.sign);
+            return;
+        }
+        // Only candidate times (gmax > 0) end a flight before dt.
+        let rs = rs.as_mut().expect("a candidate time has a stream");
+        tally.candidates += 1;
+        let u: f64 = rs.random::<f64>() * gmax;
+        let (_, chosen) = rates(setup, &p.x[..n], Some(u));
+        let Some((i, j, cell)) = chosen else { continue };
+        tally.events += 1;
+        let table = if j.is_none() {
+            setup.table1.as_ref()
+        } else {
+            setup.table2.as_ref()
+        };
+        let m = table.expect("a chosen term has a table").sample(cell, rs);
+        let q = m as f64 * setup.dk;
+        for (child_sign, dir) in [(p.sign, 1.0), (-p.sign, -1.0)] {
+            let mut k = p.k;
+            k[i] += dir * q;
+            if let Some(j) = j {
+                k[j] -= dir * q;
             }
-            if next >= dt {
-                out.push(&p.x[..n], &p.k[..n], p.id, p.sign);
-                continue 'particles;
+            let id = rng::make_id(
+                group as u32,
+                rng::hash(&[setup.seed, tag::CHILD_ID, p.id, interval, births]),
+            );
+            births += 1;
+            if k[..n].iter().any(|v| v.abs() > setup.k_max) {
+                tally.lost_momentum[group] += child_sign as i64;
+                continue;
             }
-            tally.candidates += 1;
-            let u: f64 = rs.random::<f64>() * gmax;
-            let (_, chosen) = rates(setup, &p.x[..n], Some(u));
-            let Some((i, j, cell)) = chosen else { continue };
-            tally.events += 1;
-            let table = if j.is_none() {
-                setup.table1.as_ref()
-            } else {
-                setup.table2.as_ref()
-            };
-            let m = table
-                .expect("a chosen term has a table")
-                .sample(cell, &mut rs);
-            let q = m as f64 * setup.dk;
-            for (child_sign, dir) in [(p.sign, 1.0), (-p.sign, -1.0)] {
-                let mut k = p.k;
-                k[i] += dir * q;
-                if let Some(j) = j {
-                    k[j] -= dir * q;
-                }
-                let id = rng::make_id(
-                    group as u32,
-                    rng::hash(&[setup.seed, tag::CHILD_ID, p.id, interval, births]),
-                );
-                births += 1;
-                if k[..n].iter().any(|v| v.abs() > setup.k_max) {
-                    tally.lost_momentum[group] += child_sign as i64;
-                    continue;
-                }
-                stack.push(Flying {
-                    x: p.x,
-                    k,
-                    id,
-                    sign: child_sign,
-                    tau: p.tau,
-                });
-            }
+            stack.push(Flying {
+                x: p.x,
+                k,
+                id,
+                sign: child_sign,
+                tau: p.tau,
+            });
         }
     }
 }
@@ -257,6 +274,7 @@ pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
     let n = setup.n;
     let groups = setup.groups as usize;
     const CHUNK: usize = 2048;
+    let free = setup.one_body.force.is_zero();
     let parts: Vec<(Store, Tally)> = (0..store.len().div_ceil(CHUNK))
         .into_par_iter()
         .map(|c| {
@@ -264,17 +282,28 @@ pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
             let mut out = Store::with_capacity(n, to - from);
             let mut tally = Tally::new(groups);
             let mut stack = Vec::new();
+            // One start record, overwritten per particle (entries beyond n stay 0).
+            let mut start = Flying {
+                x: [0.0; MAX_N],
+                k: [0.0; MAX_N],
+                id: 0,
+                sign: 0,
+                tau: 0.0,
+            };
             for p in from..to {
-                let mut start = Flying {
-                    x: [0.0; MAX_N],
-                    k: [0.0; MAX_N],
-                    id: store.id[p],
-                    sign: store.sign[p],
-                    tau: 0.0,
-                };
-                start.x[..n].copy_from_slice(store.xs(p));
-                start.k[..n].copy_from_slice(store.ks(p));
-                fly(setup, interval, start, &mut out, &mut tally, &mut stack);
+                for i in 0..n {
+                    start.x[i] = store.x[p * n + i];
+                    start.k[i] = store.k[p * n + i];
+                }
+                start.id = store.id[p];
+                start.sign = store.sign[p];
+                start.tau = 0.0;
+                let (s, o, t, st) = (&mut start, &mut out, &mut tally, &mut stack);
+                if free {
+                    fly::<true>(setup, interval, s, o, t, st);
+                } else {
+                    fly::<false>(setup, interval, s, o, t, st);
+                }
             }
             (out, tally)
         })

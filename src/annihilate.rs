@@ -159,10 +159,19 @@ pub fn annihilate(
     let mut before = [store.len() as i64];
     comm.sum_i64(&mut before);
     let t_start = std::time::Instant::now();
-    // 1. Keys, sorted; runs of equal keys are the occupied cells.
-    let mut order: Vec<(u128, u32)> = (0..store.len())
+    // 1. Keys, sorted; runs of equal keys are the occupied cells. Each entry carries the
+    //    particle's priority and sign (they fill the padding of the 32-byte entry), so that
+    //    the passes over the cells below never read the store at random.
+    let mut order: Vec<(u128, u64, u32, i8)> = (0..store.len())
         .into_par_iter()
-        .map(|p| (mesh.key(store.xs(p), store.ks(p), store.id[p]), p as u32))
+        .map(|p| {
+            (
+                mesh.key(store.xs(p), store.ks(p), store.id[p]),
+                priority(setup, store, p, interval),
+                p as u32,
+                store.sign[p],
+            )
+        })
         .collect();
     order.par_sort_unstable();
     let mut runs: Vec<(u128, usize, usize, u32, u32)> = Vec::new(); // key, from, to, plus, minus
@@ -172,7 +181,7 @@ pub fn annihilate(
         let mut b = a;
         let (mut plus, mut minus) = (0u32, 0u32);
         while b < order.len() && order[b].0 == key {
-            if store.sign[order[b].1 as usize] > 0 {
+            if order[b].3 > 0 {
                 plus += 1;
             } else {
                 minus += 1;
@@ -253,12 +262,12 @@ pub fn annihilate(
             let ri = run_of(key);
             let (_, from, to, _, _) = runs[ri];
             let mut mine: Vec<(u64, usize)> = Vec::new();
-            for &(_, p) in &order[from..to] {
+            for &(_, pr, p, sign) in &order[from..to] {
                 let p = p as usize;
-                if store.sign[p] != major {
+                if sign != major {
                     keep[p] = false;
                 } else {
-                    mine.push((priority(setup, store, p, interval), p));
+                    mine.push((pr, p));
                 }
             }
             if mode == SELECT_LOCAL {
@@ -352,9 +361,8 @@ pub fn annihilate(
                 let (_, from, to, _, _) = runs[ri];
                 let mut mine: Vec<(u64, usize)> = order[from..to]
                     .iter()
-                    .map(|&(_, p)| p as usize)
-                    .filter(|&p| store.sign[p] == major && keep[p])
-                    .map(|p| (priority(setup, store, p, interval), p))
+                    .filter(|e| e.3 == major && keep[e.2 as usize])
+                    .map(|e| (e.1, e.2 as usize))
                     .collect();
                 mine.sort_unstable();
                 for (pr, p) in mine {
