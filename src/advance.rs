@@ -149,35 +149,38 @@ fn rates(
     (total, None)
 }
 
-/// Fly one particle (and, through `stack`, its descendants) to the end of interval
-/// `interval`, pushing survivors into `out`: the start particle first, then its
-/// descendants last-in first-out. `start` is flown in place. `FREE`: no drift force
+/// Fly one particle in place (and, through `stack`, its descendants) to the end of
+/// interval `interval`. Returns whether the start particle survives (its record then holds
+/// its new state); surviving descendants are pushed into `children`. `FREE`: no drift force
 /// (a separate instance, so that the free flight computes nothing of the force).
 fn fly<const FREE: bool>(
     setup: &Setup,
     interval: u64,
     start: &mut Flying,
-    out: &mut Store,
+    children: &mut Store,
     tally: &mut Tally,
     stack: &mut Vec<Flying>,
-) {
-    flight::<FREE>(setup, interval, start, out, tally, stack);
+) -> bool {
+    let n = setup.n;
+    let alive = flight::<FREE>(setup, interval, start, tally, stack);
     while let Some(mut p) = stack.pop() {
-        flight::<FREE>(setup, interval, &mut p, out, tally, stack);
+        if flight::<FREE>(setup, interval, &mut p, tally, stack) {
+            children.push(&p.x[..n], &p.k[..n], p.id, p.sign);
+        }
     }
+    alive
 }
 
 /// Fly particle `p` in place to the end of the interval (or until it leaves), pushing its
-/// children onto `stack` and, if it survives, itself into `out`.
+/// children onto `stack`. Returns whether it is still there at the end of the interval.
 #[inline]
 fn flight<const FREE: bool>(
     setup: &Setup,
     interval: u64,
     p: &mut Flying,
-    out: &mut Store,
     tally: &mut Tally,
     stack: &mut Vec<Flying>,
-) {
+) -> bool {
     let n = setup.n;
     let dt = setup.dt;
     let gmax = setup.gamma_max;
@@ -212,21 +215,20 @@ fn flight<const FREE: bool>(
                 Fate::Inside => {}
                 Fate::Left => {
                     tally.absorbed_left[group] += p.sign as i64;
-                    return;
+                    return false;
                 }
                 Fate::Right => {
                     tally.absorbed_right[group] += p.sign as i64;
-                    return;
+                    return false;
                 }
             }
         }
         if !FREE && p.k[..n].iter().any(|k| k.abs() > setup.k_max) {
             tally.lost_momentum[group] += p.sign as i64;
-            return;
+            return false;
         }
         if next >= dt {
-            out.push(&p.x[..n], &p.k[..n], p.id, p.sign);
-            return;
+            return true;
         }
         // Only candidate times (gmax > 0) end a flight before dt.
         let rs = rs.as_mut().expect("a candidate time has a stream");
@@ -269,17 +271,23 @@ fn flight<const FREE: bool>(
 }
 
 /// Advance every particle of `store` through synchronisation interval `interval`
-/// (from t = interval·dt to (interval + 1)·dt). Returns the survivors and the tallies.
-pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
+/// (from t = interval·dt to (interval + 1)·dt), in place: survivors keep their slot (the
+/// store is compacted only when some left), children are appended. Returns the tallies.
+pub fn advance_in_place(setup: &Setup, store: &mut Store, interval: u64) -> Tally {
     let n = setup.n;
     let groups = setup.groups as usize;
     const CHUNK: usize = 2048;
     let free = setup.one_body.force.is_zero();
-    let parts: Vec<(Store, Tally)> = (0..store.len().div_ceil(CHUNK))
-        .into_par_iter()
-        .map(|c| {
-            let (from, to) = (c * CHUNK, ((c + 1) * CHUNK).min(store.len()));
-            let mut out = Store::with_capacity(n, to - from);
+    let parts: Vec<(Store, Vec<u32>, Tally)> = store
+        .x
+        .par_chunks_mut(CHUNK * n)
+        .zip(store.k.par_chunks_mut(CHUNK * n))
+        .zip(store.id.par_chunks(CHUNK))
+        .zip(store.sign.par_chunks(CHUNK))
+        .enumerate()
+        .map(|(c, (((xs, ks), ids), signs))| {
+            let mut children = Store::new(n);
+            let mut gone = Vec::new();
             let mut tally = Tally::new(groups);
             let mut stack = Vec::new();
             // One start record, overwritten per particle (entries beyond n stay 0).
@@ -290,30 +298,51 @@ pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
                 sign: 0,
                 tau: 0.0,
             };
-            for p in from..to {
-                for i in 0..n {
-                    start.x[i] = store.x[p * n + i];
-                    start.k[i] = store.k[p * n + i];
-                }
-                start.id = store.id[p];
-                start.sign = store.sign[p];
+            for p in 0..ids.len() {
+                start.x[..n].copy_from_slice(&xs[p * n..(p + 1) * n]);
+                start.k[..n].copy_from_slice(&ks[p * n..(p + 1) * n]);
+                start.id = ids[p];
+                start.sign = signs[p];
                 start.tau = 0.0;
-                let (s, o, t, st) = (&mut start, &mut out, &mut tally, &mut stack);
-                if free {
-                    fly::<true>(setup, interval, s, o, t, st);
+                let (s, o, t, st) = (&mut start, &mut children, &mut tally, &mut stack);
+                let alive = if free {
+                    fly::<true>(setup, interval, s, o, t, st)
                 } else {
-                    fly::<false>(setup, interval, s, o, t, st);
+                    fly::<false>(setup, interval, s, o, t, st)
+                };
+                if alive {
+                    xs[p * n..(p + 1) * n].copy_from_slice(&start.x[..n]);
+                    ks[p * n..(p + 1) * n].copy_from_slice(&start.k[..n]);
+                } else {
+                    gone.push((c * CHUNK + p) as u32);
                 }
             }
-            (out, tally)
+            (children, gone, tally)
         })
         .collect();
-    let total: usize = parts.iter().map(|(s, _)| s.len()).sum();
-    let mut out = Store::with_capacity(n, total);
     let mut tally = Tally::new(groups);
-    for (mut s, t) in parts {
-        out.append(&mut s);
+    let any_gone = parts.iter().any(|(_, g, _)| !g.is_empty());
+    if any_gone {
+        let mut keep = vec![true; store.len()];
+        for (_, g, _) in &parts {
+            for &p in g {
+                keep[p as usize] = false;
+            }
+        }
+        store.retain(&keep);
+    }
+    let extra: usize = parts.iter().map(|(c, _, _)| c.len()).sum();
+    store.reserve(extra);
+    for (mut c, _, t) in parts {
+        store.append(&mut c);
         tally.add(&t);
     }
+    tally
+}
+
+/// [`advance_in_place`] on a copy: the survivors and the tallies.
+pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
+    let mut out = store.clone();
+    let tally = advance_in_place(setup, &mut out, interval);
     (out, tally)
 }

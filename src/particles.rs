@@ -32,6 +32,14 @@ impl Store {
         }
     }
 
+    /// Room for `extra` more particles.
+    pub fn reserve(&mut self, extra: usize) {
+        self.x.reserve(extra * self.n);
+        self.k.reserve(extra * self.n);
+        self.id.reserve(extra);
+        self.sign.reserve(extra);
+    }
+
     pub fn len(&self) -> usize {
         self.id.len()
     }

@@ -381,8 +381,7 @@ fn drive(
     while st.step < stop_step {
         let step_started = Instant::now();
         let t0 = Instant::now();
-        let (store, tally) = advance::advance(setup, &st.store, st.step);
-        st.store = store;
+        let tally = advance::advance_in_place(setup, &mut st.store, st.step);
         st.step += 1;
         timers.add(P_ADVANCE, t0);
         let t0 = Instant::now();
