@@ -424,13 +424,11 @@ fn draw_density(
                 dashed: true,
             });
         }
-        title = format!(
-            "One-body density n(x) at t = {} fs: {name_a} (solid), {name_b} (dashed)",
-            times.join(", ")
-        );
+        // The legend names the file of each curve (solid, dashed); the title stays short.
+        title = format!("One-body density n(x) at t = {} fs", times.join(", "));
     }
     if err.is_some() || b.is_some_and(|(_, r)| r.series.contains_key("density_error")) {
-        title.push_str(", bands ±1 standard error");
+        title.push_str(" (bands: ±1 s.e.)");
     }
     let area = root.titled(&title, (FONT_NAME, TITLE_PX))?;
     draw_curves(
