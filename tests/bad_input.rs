@@ -206,3 +206,27 @@ fn errors_under_mpirun_are_clean() {
     let err = String::from_utf8_lossy(&o.stderr);
     assert_eq!(err.matches("numerics.coherence_length").count(), 1, "{err}");
 }
+
+/// A run that would pass its memory cap stops with the numbers, before memory runs out.
+#[test]
+fn memory_cap_stops_the_run_with_the_numbers() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "good.toml", GOOD);
+    let out = dir.path().join("out");
+    let o = signfold(&[
+        "run",
+        job.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+        "--set",
+        "numerics.memory_limit_mib=0.05",
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        err.contains("memory cap")
+            && err.contains("numerics.memory_limit_mib")
+            && err.contains("particle count"),
+        "{err}"
+    );
+}

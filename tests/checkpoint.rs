@@ -307,3 +307,65 @@ fn failed_writes_are_clean_errors() {
     ok(&signfold(&["resume", o]));
     assert_same(&full, &results(&out), "after the blocked checkpoint");
 }
+
+/// --walltime stops with a checkpoint before the allocation ends (here the margin exceeds
+/// the whole allowance, so at the first synchronisation time), and SIGUSR1 sent to mpirun
+/// (which forwards it) makes every rank checkpoint at the next synchronisation time and
+/// exit 0. Neither changes the trajectory.
+#[test]
+fn walltime_and_signals_stop_cleanly() {
+    let tmp = tempfile::tempdir().unwrap();
+    let full = uninterrupted(tmp.path());
+    let out = tmp.path().join("walltime");
+    let o = out.to_str().unwrap();
+    let text = ok(&signfold(&args(
+        "run",
+        &job(),
+        o,
+        &["--walltime", "00:00:05"],
+    )));
+    assert!(text.contains("--walltime"), "{text}");
+    assert!(
+        results(&out).times().len() < full.times().len(),
+        "stopped early"
+    );
+    ok(&signfold(&["resume", o]));
+    assert_same(&full, &results(&out), "after --walltime");
+
+    let out = tmp.path().join("signal");
+    let o = out.to_str().unwrap().to_string();
+    let mut child = Command::new("mpirun")
+        .args(["-np", "2", "--oversubscribe", bin()])
+        .args(args("run", &job(), &o, &["--set", "numerics.end_time=400"]))
+        .env("OMPI_ALLOW_RUN_AS_ROOT", "1")
+        .env("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1")
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let t0 = Instant::now();
+    while !out.join("observables.h5").exists() && t0.elapsed() < Duration::from_secs(60) {
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    std::thread::sleep(Duration::from_millis(300));
+    // SAFETY: signalling our own child.
+    unsafe {
+        libc::kill(child.id() as i32, libc::SIGUSR1);
+    }
+    let status = child.wait().unwrap();
+    assert!(status.success(), "exit 0 after the stop signal");
+    let cps = checkpoints(&out);
+    assert_eq!(cps.len(), 1, "one checkpoint written at the stop");
+    let stopped = results(&out);
+    assert!(*stopped.times().last().unwrap() < 400.0);
+    // Resume to the same end as `full` by capping the end time the job asked for: the
+    // stored job says 400 fs, so compare the common prefix with a straight run instead.
+    ok(&signfold(&["resume", &o, "--until", "40"]));
+    let straight = tmp.path().join("straight");
+    ok(&signfold(&args(
+        "run",
+        &job(),
+        straight.to_str().unwrap(),
+        &["--set", "numerics.end_time=400", "--until", "40"],
+    )));
+    assert_same(&results(&straight), &results(&out), "after SIGUSR1");
+}
