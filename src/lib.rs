@@ -21,6 +21,7 @@ pub mod reference;
 pub mod results;
 pub mod rng;
 pub mod run;
+pub mod scaling;
 pub mod setup;
 pub mod units;
 

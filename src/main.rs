@@ -103,11 +103,44 @@ enum Command {
     },
     /// Print what a result or checkpoint file holds.
     Inspect { file: PathBuf },
+    /// Strong and weak scaling series: launch `run` at several rank counts, write CSV and PNG.
+    Scaling {
+        job: PathBuf,
+        /// Comma-separated rank counts, e.g. 1,2,4,8.
+        #[arg(long, value_delimiter = ',', required = true)]
+        ranks: Vec<usize>,
+        /// Strong and threads: total particles; weak: particles per rank
+        /// (default: the job's count; with --quick 20000).
+        #[arg(long)]
+        particles: Option<u64>,
+        #[arg(long, value_enum, default_value = "all")]
+        mode: signfold::scaling::Mode,
+        /// Short series: at most 20 synchronisation steps, 20000 particles by default.
+        #[arg(long)]
+        quick: bool,
+        /// Directory for the CSV files, pictures and machine.txt.
+        #[arg(long, default_value = "scaling-results")]
+        out: PathBuf,
+        #[arg(long = "set", value_name = "KEY=VALUE")]
+        set: Vec<String>,
+        /// MPI launcher and its options; `-n P PROGRAM run …` follows.
+        #[arg(long, default_value = "mpirun --oversubscribe")]
+        launcher: String,
+        /// Runs per point; the shortest is reported.
+        #[arg(long, default_value_t = 1)]
+        repeat: usize,
+        /// Keep each run's directory under OUT/runs.
+        #[arg(long)]
+        keep_runs: bool,
+    },
 }
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
     run::ignore_file_size_signal();
+    if matches!(cli.command, Command::Scaling { .. }) {
+        signfold::scaling::save_starting_environment();
+    }
     let Some(universe) = mpi::initialize() else {
         eprintln!("signfold: error: MPI could not be initialised");
         return ExitCode::from(2);
@@ -185,6 +218,7 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             | Command::Compare { .. }
             | Command::Plot { .. }
             | Command::Inspect { .. }
+            | Command::Scaling { .. }
     );
     if serial && !world.is_root() {
         return Ok(ExitCode::SUCCESS);
@@ -268,6 +302,35 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
                 dt,
             };
             signfold::reference::command(&job, &out, &set, force, &opts)?;
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Scaling {
+            job,
+            ranks,
+            particles,
+            mode,
+            quick,
+            out,
+            set,
+            launcher,
+            repeat,
+            keep_runs,
+        } => {
+            let opts = signfold::scaling::Options {
+                job,
+                ranks,
+                particles,
+                mode,
+                quick,
+                out,
+                set,
+                launcher,
+                repeat,
+                keep_runs,
+            };
+            for path in signfold::scaling::drive(&opts)? {
+                println!("{}", path.display());
+            }
             Ok(ExitCode::SUCCESS)
         }
         Command::Compare { a, b, tolerance } => {

@@ -657,6 +657,89 @@ pub fn short(v: f64) -> String {
     if s == "-0" { "0".into() } else { s.into() }
 }
 
+/// Size in pixels of a scaling picture.
+pub const SCALING_SIZE: (u32, u32) = (960, 840);
+
+/// A scaling series: parallel efficiency (top) and the longest time over ranks per phase
+/// (bottom) against the cores used (ranks × threads). Rows that use one thread per rank
+/// form one curve; rows with one rank and several threads another.
+pub fn scaling_picture(path: &Path, title: &str, rows: &[crate::scaling::Row]) -> Result<()> {
+    ensure_font()?;
+    let cores = |r: &crate::scaling::Row| (r.ranks * r.threads) as f64;
+    let by_ranks: Vec<&crate::scaling::Row> = rows.iter().filter(|r| r.threads == 1).collect();
+    let by_threads: Vec<&crate::scaling::Row> = rows.iter().filter(|r| r.ranks == 1).collect();
+    let mut eff = vec![Curve {
+        label: "P ranks × 1 thread".into(),
+        xs: by_ranks.iter().map(|r| cores(r)).collect(),
+        ys: by_ranks.iter().map(|r| r.efficiency).collect(),
+        err: None,
+        colour: colormap::line(0),
+        dashed: false,
+    }];
+    if rows.iter().any(|r| r.threads > 1) {
+        eff.push(Curve {
+            label: "1 rank × T threads".into(),
+            xs: by_threads.iter().map(|r| cores(r)).collect(),
+            ys: by_threads.iter().map(|r| r.efficiency).collect(),
+            err: None,
+            colour: colormap::line(1),
+            dashed: false,
+        });
+    }
+    let (lo, hi) = rows
+        .iter()
+        .map(cores)
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), c| {
+            (a.min(c), b.max(c))
+        });
+    eff.push(Curve {
+        label: "ideal".into(),
+        xs: vec![lo, hi],
+        ys: vec![1.0, 1.0],
+        err: None,
+        colour: (120, 120, 120),
+        dashed: true,
+    });
+    let mut phases = vec![Curve {
+        label: "wall".into(),
+        xs: by_ranks.iter().map(|r| cores(r)).collect(),
+        ys: by_ranks.iter().map(|r| r.wall_s).collect(),
+        err: None,
+        colour: (0, 0, 0),
+        dashed: true,
+    }];
+    for (i, name) in crate::run::PHASES.iter().enumerate() {
+        if by_ranks.iter().all(|r| r.phase_s[i] == 0.0) {
+            continue;
+        }
+        phases.push(Curve {
+            label: (*name).into(),
+            xs: by_ranks.iter().map(|r| cores(r)).collect(),
+            ys: by_ranks.iter().map(|r| r.phase_s[i]).collect(),
+            err: None,
+            colour: colormap::line(phases.len() - 1),
+            dashed: phases.len() > 6,
+        });
+    }
+    render(path, SCALING_SIZE, |root| {
+        let area = root.titled(title, (FONT_NAME, TITLE_PX))?;
+        let panels = area.split_evenly((2, 1));
+        draw_curves(
+            &panels[0],
+            "cores (ranks × threads)",
+            "parallel efficiency",
+            &eff,
+        )?;
+        draw_curves(
+            &panels[1],
+            "cores (ranks × threads)",
+            "longest time over ranks (s)",
+            &phases,
+        )?;
+        Ok(())
+    })
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
