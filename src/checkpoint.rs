@@ -45,16 +45,31 @@ pub fn list(dir: &Path) -> Vec<u64> {
     steps
 }
 
-/// Order-independent checksum of particles: wrapping sum of a hash of each particle.
+/// Order-independent checksum of particles: the wrapping sum over particles of a mix of
+/// each of their words, salted by the word's place in the record (so that swapped fields
+/// within a particle change it). Computed in parallel; any partition gives the same sum.
 fn local_checksum(store: &Store) -> u64 {
-    let mut sum = 0u64;
-    for p in 0..store.len() {
-        let mut words = vec![store.id[p], store.sign[p] as i64 as u64];
-        words.extend(store.xs(p).iter().map(|v| v.to_bits()));
-        words.extend(store.ks(p).iter().map(|v| v.to_bits()));
-        sum = sum.wrapping_add(rng::hash(&words));
-    }
-    sum
+    use rayon::prelude::*;
+    let n = store.n;
+    (0..store.len())
+        .into_par_iter()
+        .map(|p| {
+            let mut h = rng::mix(store.id[p]) ^ rng::mix(store.sign[p] as i64 as u64 ^ 0x51);
+            for i in 0..n {
+                h = h.wrapping_add(rng::mix(
+                    store.x[p * n + i]
+                        .to_bits()
+                        .wrapping_add(0x9e37_79b9 * (i as u64 + 1)),
+                ));
+                h = h.wrapping_add(rng::mix(
+                    store.k[p * n + i]
+                        .to_bits()
+                        .wrapping_add(0x7f4a_7c15 * (i as u64 + 1)),
+                ));
+            }
+            rng::mix(h)
+        })
+        .reduce(|| 0u64, |a, b| a.wrapping_add(b))
 }
 
 fn global_checksum(store: &Store, comm: &dyn Comm) -> u64 {
@@ -75,7 +90,8 @@ fn offsets(n_local: usize, comm: &dyn Comm) -> (u64, u64) {
 
 fn open_for(comm: &dyn Comm, path: &Path, create: bool) -> hdf5::Result<hdf5::File> {
     let mut b = hdf5::FileBuilder::new();
-    if let Some(c) = comm.mpi_comm() {
+    // One rank writes alone through the plain POSIX driver; more share the file via MPI-IO.
+    if let Some(c) = comm.mpi_comm().filter(|_| comm.size() > 1) {
         b.with_fapl(|p| p.mpio(c, None));
     }
     if create { b.create(path) } else { b.open(path) }
