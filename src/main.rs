@@ -103,6 +103,21 @@ enum Command {
     },
     /// Print what a result or checkpoint file holds.
     Inspect { file: PathBuf },
+    /// Measure the Monte Carlo against the exact reference over particle counts and
+    /// coherence lengths for the demo jobs (see docs/accuracy.md).
+    Accuracy {
+        /// A short ladder at the default coherence lengths only (a few minutes).
+        #[arg(long)]
+        quick: bool,
+        /// Also run the interacting pair at 10^7 particles (about ten minutes more).
+        #[arg(long)]
+        large: bool,
+        #[arg(long, default_value = "scaling-results")]
+        out: PathBuf,
+        /// Directory of the demo jobs.
+        #[arg(long, default_value = "jobs")]
+        jobs: PathBuf,
+    },
 }
 
 fn main() -> ExitCode {
@@ -185,6 +200,7 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             | Command::Compare { .. }
             | Command::Plot { .. }
             | Command::Inspect { .. }
+            | Command::Accuracy { .. }
     );
     if serial && !world.is_root() {
         return Ok(ExitCode::SUCCESS);
@@ -268,6 +284,23 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
                 dt,
             };
             signfold::reference::command(&job, &out, &set, force, &opts)?;
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Accuracy {
+            quick,
+            large,
+            out,
+            jobs,
+        } => {
+            let opts = signfold::accuracy::Options {
+                quick,
+                large,
+                out,
+                jobs,
+            };
+            for path in signfold::accuracy::command(&opts)? {
+                println!("wrote {}", path.display());
+            }
             Ok(ExitCode::SUCCESS)
         }
         Command::Compare { a, b, tolerance } => {
