@@ -1,5 +1,6 @@
 //! signfold: signed-particle Wigner Monte Carlo for a few interacting particles.
 #![allow(clippy::needless_range_loop)] // index loops mirror the equations (particle i, pair i<j)
+pub mod accuracy;
 pub mod advance;
 pub mod annihilate;
 pub mod check;

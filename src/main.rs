@@ -133,6 +133,21 @@ enum Command {
         #[arg(long)]
         keep_runs: bool,
     },
+    /// Measure the Monte Carlo against the exact reference over particle counts and
+    /// coherence lengths for the demo jobs (see docs/accuracy.md).
+    Accuracy {
+        /// A short ladder at the default coherence lengths only (a few minutes).
+        #[arg(long)]
+        quick: bool,
+        /// Also run the interacting pair at 10^7 particles (about ten minutes more).
+        #[arg(long)]
+        large: bool,
+        #[arg(long, default_value = "scaling-results")]
+        out: PathBuf,
+        /// Directory of the demo jobs.
+        #[arg(long, default_value = "jobs")]
+        jobs: PathBuf,
+    },
 }
 
 fn main() -> ExitCode {
@@ -219,6 +234,7 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             | Command::Plot { .. }
             | Command::Inspect { .. }
             | Command::Scaling { .. }
+            | Command::Accuracy { .. }
     );
     if serial && !world.is_root() {
         return Ok(ExitCode::SUCCESS);
@@ -330,6 +346,23 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             };
             for path in signfold::scaling::drive(&opts)? {
                 println!("{}", path.display());
+            }
+            Ok(ExitCode::SUCCESS)
+        }
+        Command::Accuracy {
+            quick,
+            large,
+            out,
+            jobs,
+        } => {
+            let opts = signfold::accuracy::Options {
+                quick,
+                large,
+                out,
+                jobs,
+            };
+            for path in signfold::accuracy::command(&opts)? {
+                println!("wrote {}", path.display());
             }
             Ok(ExitCode::SUCCESS)
         }

@@ -300,6 +300,26 @@ pub fn frame(
     put("absorbed_right", "1", &[], 1, 1.0, &|gr, _| {
         gone.right[gr] as f64
     });
+    // Norm that has gone or is going to the right: `absorbed_right` plus the one-body
+    // fraction (1/N)∫n dx over the bins centred at x > 0; for one particle the
+    // transmitted norm of a packet sent from the left, with its own group error.
+    let right_bins: Vec<usize> = setup
+        .x_bins
+        .centres()
+        .iter()
+        .enumerate()
+        .filter(|(_, x)| **x > 0.0)
+        .map(|(i, _)| i)
+        .collect();
+    let n_body = setup.n as f64;
+    put("norm_right", "1", &[], 1, 1.0, &|gr, _| {
+        gone.right[gr] as f64
+            + right_bins
+                .iter()
+                .map(|&i| c.density[gr * nx + i] as f64)
+                .sum::<f64>()
+                / n_body
+    });
     put("lost_norm", "1", &[], 1, 1.0, &|gr, _| {
         gone.momentum[gr] as f64
     });

@@ -24,21 +24,21 @@ pub const DENSITY_SIZE: (u32, u32) = (960, 600);
 /// Size in pixels of the norm/energy/particles picture.
 pub const HISTORY_SIZE: (u32, u32) = (960, 840);
 
-const FONT_NAME: &str = "sans-serif";
+pub(crate) const FONT_NAME: &str = "sans-serif";
 static FONT: &[u8] = include_bytes!("../assets/DejaVuSans.ttf");
 
-const TITLE_PX: u32 = 22;
-const LABEL_PX: u32 = 17;
-const TICK_PX: u32 = 14;
+pub(crate) const TITLE_PX: u32 = 22;
+pub(crate) const LABEL_PX: u32 = 17;
+pub(crate) const TICK_PX: u32 = 14;
 const MARGIN: u32 = 15;
 const X_LABELS: u32 = 55;
 const Y_LABELS: u32 = 90;
 /// Width of the colour-bar column next to a heat map.
 const BAR_COLUMN: u32 = 150;
 
-type Area<'a> = DrawingArea<BitMapBackend<'a>, Shift>;
+pub(crate) type Area<'a> = DrawingArea<BitMapBackend<'a>, Shift>;
 
-fn ensure_font() -> Result<()> {
+pub(crate) fn ensure_font() -> Result<()> {
     static LOADED: OnceLock<bool> = OnceLock::new();
     let ok = *LOADED.get_or_init(|| register_font(FONT_NAME, FontStyle::Normal, FONT).is_ok());
     if !ok {
@@ -182,7 +182,11 @@ fn optional<'a>(
 }
 
 /// Render a picture into memory and write it as an 8-bit RGB PNG.
-fn render(path: &Path, size: (u32, u32), draw: impl FnOnce(&Area) -> Result<()>) -> Result<()> {
+pub(crate) fn render(
+    path: &Path,
+    size: (u32, u32),
+    draw: impl FnOnce(&Area) -> Result<()>,
+) -> Result<()> {
     let mut buf = vec![255u8; size.0 as usize * size.1 as usize * 3];
     {
         let root = BitMapBackend::with_buffer(&mut buf, size).into_drawing_area();
