@@ -146,7 +146,7 @@ pub enum CellKind {
 #[derive(Deserialize, Serialize, Clone, Debug)]
 #[serde(deny_unknown_fields)]
 pub struct Annihilation {
-    /// Cell size in x, nm (default: 2 nm or the mesh cell if coarser).
+    /// Cell size in x, nm (default: the mesh cell).
     pub cell_x: Option<f64>,
     /// Cell size in k, 1/nm (default Δk/2).
     pub cell_k: Option<f64>,

@@ -110,7 +110,7 @@ impl Setup {
         let pairs = (n * n.saturating_sub(1) / 2) as f64;
         let gamma_max = n as f64 * table1.as_ref().map_or(0.0, |t| t.gamma_max)
             + pairs * table2.as_ref().map_or(0.0, |t| t.gamma_max);
-        let cell_x = job.annihilation.cell_x.unwrap_or(mesh_dx.max(2.0));
+        let cell_x = job.annihilation.cell_x.unwrap_or(mesh_dx);
         let cell_k = job.annihilation.cell_k.unwrap_or(dk / 2.0);
         let memory_limit = job
             .numerics
