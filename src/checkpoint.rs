@@ -193,7 +193,20 @@ pub fn write(
     // step inside H5Fclose), so refuse up front what would fail: a file-size limit or a
     // disk too small for this checkpoint, checked on every rank.
     let bytes = total as f64 * (16 * st.store.n + 9) as f64 + (256u64 << 10) as f64;
-    crate::run::agree(comm, preflight(dir, bytes)).context("checkpoint")?;
+    // A stale temporary file of a killed run is unlinked first (rank 0, before the
+    // agreement below, which every rank passes only after it).
+    let stale = if root {
+        match std::fs::remove_file(&tmp) {
+            Err(e) if e.kind() != std::io::ErrorKind::NotFound => Err(anyhow!(
+                "cannot write {}: something in the way cannot be removed ({e})",
+                tmp.display()
+            )),
+            _ => Ok(()),
+        }
+    } else {
+        Ok(())
+    };
+    crate::run::agree(comm, stale.and_then(|_| preflight(dir, bytes))).context("checkpoint")?;
     let checksum = global_checksum(&st.store, comm);
     let n = st.store.n as u64;
     // Every collective HDF5 call happens on every rank: after each stage the ranks agree on

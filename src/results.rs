@@ -94,6 +94,13 @@ impl ResultFile {
     /// Write to `path` atomically: a temporary file in the same directory, then rename.
     pub fn write_atomic(&self, path: &Path) -> Result<()> {
         let tmp = path.with_extension("h5.tmp");
+        // A killed earlier writer may have left (or may still hold) a temporary file:
+        // unlink it, so that this write starts from a fresh file of its own.
+        match std::fs::remove_file(&tmp) {
+            Ok(()) => {}
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+            Err(e) => return Err(anyhow!("cannot remove the stale {}: {e}", tmp.display())),
+        }
         self.write_to(&tmp)
             .with_context(|| format!("cannot write {}", tmp.display()))?;
         std::fs::rename(&tmp, path)
