@@ -124,7 +124,7 @@ enum Command {
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
         /// MPI launcher and its options; `-n P PROGRAM run …` follows.
-        #[arg(long, default_value = "mpirun --oversubscribe")]
+        #[arg(long, default_value = "mpirun --oversubscribe --bind-to none")]
         launcher: String,
         /// Runs per point; the shortest is reported.
         #[arg(long, default_value_t = 1)]
