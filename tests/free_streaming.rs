@@ -370,3 +370,32 @@ fn free_three_fermions_match_exact() {
     ];
     check_against_exact("fermion", &orbs, 300_000);
 }
+
+/// Four free fermions (N = 4, the largest count supported and tested now): density and
+/// pair density exact at every output time.
+#[test]
+fn free_four_fermions_match_exact() {
+    let orbs = vec![
+        Orb {
+            x0: -36.0,
+            k0: 0.5,
+            sigma: 4.0,
+        },
+        Orb {
+            x0: -12.0,
+            k0: 0.2,
+            sigma: 4.5,
+        },
+        Orb {
+            x0: 12.0,
+            k0: -0.2,
+            sigma: 4.5,
+        },
+        Orb {
+            x0: 36.0,
+            k0: -0.5,
+            sigma: 4.0,
+        },
+    ];
+    check_against_exact("fermion", &orbs, 100_000);
+}
