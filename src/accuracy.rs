@@ -31,16 +31,18 @@ use std::process::Command;
 use std::time::Instant;
 
 /// Options of `signfold accuracy`.
-#[derive(Clone, Debug)]
+#[derive(clap::Args, Clone, Debug)]
 pub struct Options {
-    /// A short ladder at the default coherence length only (a smoke test of the study).
+    /// A short ladder at the default coherence lengths only (a few minutes).
+    #[arg(long)]
     pub quick: bool,
-    /// Add 10⁷ particles for the interacting pair (about ten minutes on two cores).
+    /// Also run the interacting pair at 10^7 particles (about ten minutes more).
+    #[arg(long)]
     pub large: bool,
-    /// Where `accuracy.csv`, `accuracy-fit.csv`, `accuracy.png` and
-    /// `accuracy-machine.txt` go.
+    #[arg(long, default_value = "scaling-results")]
     pub out: PathBuf,
-    /// Directory holding the demo jobs.
+    /// Directory of the demo jobs.
+    #[arg(long, default_value = "jobs")]
     pub jobs: PathBuf,
 }
 

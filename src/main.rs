@@ -104,56 +104,16 @@ enum Command {
     /// Print what a result or checkpoint file holds.
     Inspect { file: PathBuf },
     /// Strong and weak scaling series: launch `run` at several rank counts, write CSV and PNG.
-    Scaling {
-        job: PathBuf,
-        /// Comma-separated rank counts, e.g. 1,2,4,8.
-        #[arg(long, value_delimiter = ',', required = true)]
-        ranks: Vec<usize>,
-        /// Strong and threads: total particles; weak: particles per rank
-        /// (default: the job's count; with --quick 20000).
-        #[arg(long)]
-        particles: Option<u64>,
-        #[arg(long, value_enum, default_value = "all")]
-        mode: signfold::scaling::Mode,
-        /// Short series: at most 20 synchronisation steps, 20000 particles by default.
-        #[arg(long)]
-        quick: bool,
-        /// Directory for the CSV files, pictures and machine.txt.
-        #[arg(long, default_value = "scaling-results")]
-        out: PathBuf,
-        #[arg(long = "set", value_name = "KEY=VALUE")]
-        set: Vec<String>,
-        /// MPI launcher and its options; `-n P PROGRAM run …` follows.
-        #[arg(long, default_value = "mpirun --oversubscribe --bind-to none")]
-        launcher: String,
-        /// Runs per point; the shortest is reported.
-        #[arg(long, default_value_t = 1)]
-        repeat: usize,
-        /// Keep each run's directory under OUT/runs.
-        #[arg(long)]
-        keep_runs: bool,
-    },
+    Scaling(signfold::scaling::Options),
     /// Measure the Monte Carlo against the exact reference over particle counts and
     /// coherence lengths for the demo jobs (see docs/accuracy.md).
-    Accuracy {
-        /// A short ladder at the default coherence lengths only (a few minutes).
-        #[arg(long)]
-        quick: bool,
-        /// Also run the interacting pair at 10^7 particles (about ten minutes more).
-        #[arg(long)]
-        large: bool,
-        #[arg(long, default_value = "scaling-results")]
-        out: PathBuf,
-        /// Directory of the demo jobs.
-        #[arg(long, default_value = "jobs")]
-        jobs: PathBuf,
-    },
+    Accuracy(signfold::accuracy::Options),
 }
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
     run::ignore_file_size_signal();
-    if matches!(cli.command, Command::Scaling { .. }) {
+    if matches!(cli.command, Command::Scaling(_)) {
         signfold::scaling::save_starting_environment();
     }
     let Some(universe) = mpi::initialize() else {
@@ -233,8 +193,8 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             | Command::Compare { .. }
             | Command::Plot { .. }
             | Command::Inspect { .. }
-            | Command::Scaling { .. }
-            | Command::Accuracy { .. }
+            | Command::Scaling(_)
+            | Command::Accuracy(_)
     );
     if serial && !world.is_root() {
         return Ok(ExitCode::SUCCESS);
@@ -320,47 +280,13 @@ fn dispatch(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             signfold::reference::command(&job, &out, &set, force, &opts)?;
             Ok(ExitCode::SUCCESS)
         }
-        Command::Scaling {
-            job,
-            ranks,
-            particles,
-            mode,
-            quick,
-            out,
-            set,
-            launcher,
-            repeat,
-            keep_runs,
-        } => {
-            let opts = signfold::scaling::Options {
-                job,
-                ranks,
-                particles,
-                mode,
-                quick,
-                out,
-                set,
-                launcher,
-                repeat,
-                keep_runs,
-            };
+        Command::Scaling(opts) => {
             for path in signfold::scaling::drive(&opts)? {
                 println!("{}", path.display());
             }
             Ok(ExitCode::SUCCESS)
         }
-        Command::Accuracy {
-            quick,
-            large,
-            out,
-            jobs,
-        } => {
-            let opts = signfold::accuracy::Options {
-                quick,
-                large,
-                out,
-                jobs,
-            };
+        Command::Accuracy(opts) => {
             for path in signfold::accuracy::command(&opts)? {
                 println!("wrote {}", path.display());
             }

@@ -61,22 +61,36 @@ impl Series {
     }
 }
 
-/// What the driver needs.
+/// What the driver needs (the arguments of `signfold scaling`).
+#[derive(clap::Args, Clone, Debug)]
 pub struct Options {
+    /// The job file.
     pub job: PathBuf,
+    /// Comma-separated rank counts, e.g. 1,2,4,8.
+    #[arg(long, value_delimiter = ',', required = true)]
     pub ranks: Vec<usize>,
-    /// Strong: total; weak: per rank; threads: total. Default: the job's count (quick: 20 000).
+    /// Strong and threads: total particles; weak: particles per rank
+    /// (default: the job's count; with --quick 20000).
+    #[arg(long)]
     pub particles: Option<u64>,
+    #[arg(long, value_enum, default_value = "all")]
     pub mode: Mode,
-    /// Small and short: at most 20 synchronisation steps and 20 000 particles by default.
+    /// Short series: at most 20 synchronisation steps, 20000 particles by default.
+    #[arg(long)]
     pub quick: bool,
+    /// Directory for the CSV files, pictures and machine.txt.
+    #[arg(long, default_value = "scaling-results")]
     pub out: PathBuf,
+    #[arg(long = "set", value_name = "KEY=VALUE")]
     pub set: Vec<String>,
-    /// Launcher command line; `-n P` and the program follow it.
+    /// MPI launcher and its options; `-n P PROGRAM run …` follows.
+    #[arg(long, default_value = "mpirun --oversubscribe --bind-to none")]
     pub launcher: String,
-    /// Runs per point; the one with the shortest wall time is reported.
+    /// Runs per point; the shortest is reported.
+    #[arg(long, default_value_t = 1)]
     pub repeat: usize,
-    /// Keep the run directories under OUT/runs.
+    /// Keep each run's directory under OUT/runs.
+    #[arg(long)]
     pub keep_runs: bool,
 }
 
