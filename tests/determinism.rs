@@ -30,31 +30,8 @@ fn run_with(dir: &Path, ranks: usize, threads: usize, job: &Path, extra: &[&str]
 }
 
 fn assert_identical(a: &ResultFile, b: &ResultFile, what: &str) {
-    assert_eq!(a.x, b.x);
-    assert_eq!(a.k, b.k);
     assert_eq!(a.job_text, b.job_text);
-    assert_eq!(
-        a.series.keys().collect::<Vec<_>>(),
-        b.series.keys().collect::<Vec<_>>(),
-        "{what}: same datasets"
-    );
-    for (name, s) in &a.series {
-        let t = &b.series[name];
-        assert_eq!(s.frame_shape, t.frame_shape, "{what}: {name} shape");
-        let same = s.data.len() == t.data.len()
-            && s.data
-                .iter()
-                .zip(&t.data)
-                .all(|(x, y)| x.to_bits() == y.to_bits());
-        assert!(same, "{what}: dataset {name} differs");
-    }
-    for (name, (_, v)) in &a.records {
-        let w = &b.records[name].1;
-        assert!(
-            v.iter().zip(w).all(|(x, y)| x.to_bits() == y.to_bits()) && v.len() == w.len(),
-            "{what}: {name} differs"
-        );
-    }
+    assert_same_datasets(a, b, what);
 }
 
 /// A job with kernel events, annihilation (several passes, mixed cells spread over ranks)

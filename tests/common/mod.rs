@@ -115,3 +115,26 @@ pub fn chi2_bound(groups: usize, dof: usize) -> f64 {
     let b = groups as f64;
     (b - 1.0) / (b - 3.0) + 6.0 * 3.0 * (2.0 / dof as f64).sqrt()
 }
+
+/// Every dataset outside `/run` (series and records) of `a` and `b` is identical bit for
+/// bit, with the same frame shapes.
+pub fn assert_same_datasets(a: &ResultFile, b: &ResultFile, what: &str) {
+    assert_eq!(a.x, b.x, "{what}: x");
+    assert_eq!(a.k, b.k, "{what}: k");
+    assert_eq!(
+        a.series.keys().collect::<Vec<_>>(),
+        b.series.keys().collect::<Vec<_>>(),
+        "{what}: same datasets"
+    );
+    let same = |v: &[f64], w: &[f64]| {
+        v.len() == w.len() && v.iter().zip(w).all(|(x, y)| x.to_bits() == y.to_bits())
+    };
+    for (name, s) in &a.series {
+        let t = &b.series[name];
+        assert_eq!(s.frame_shape, t.frame_shape, "{what}: {name} shape");
+        assert!(same(&s.data, &t.data), "{what}: dataset {name} differs");
+    }
+    for (name, (_, v)) in &a.records {
+        assert!(same(v, &b.records[name].1), "{what}: {name} differs");
+    }
+}
