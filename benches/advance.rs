@@ -16,11 +16,11 @@
 mod support;
 
 use criterion::BenchmarkId;
-use signfold::advance::{advance, advance_in_place};
-use signfold::comm::Solo;
-use signfold::particles::Store;
-use signfold::run;
-use signfold::units;
+use signfold::engine::comm::Solo;
+use signfold::engine::start;
+use signfold::physics::flight::{advance, advance_in_place};
+use signfold::physics::particles::Store;
+use signfold::physics::units;
 use std::hint::black_box;
 use std::time::{Duration, Instant};
 
@@ -67,7 +67,7 @@ fn main() {
     let set = [format!("numerics.particles={particles}")];
     let free = support::setup("fermion-pair.toml", &set);
     let coulomb = support::setup("fermion-pair-coulomb.toml", &set);
-    let (state, _) = run::initial_state(&free, &Solo).expect("initial particles");
+    let (state, _) = start::initial_state(&free, &Solo).expect("initial particles");
     let store = state.store;
     let n_in = store.len();
     let pool = support::one_thread();

@@ -13,11 +13,11 @@ mod support;
 
 use criterion::BenchmarkId;
 use rand::{Rng, SeedableRng};
-use signfold::advance::advance;
-use signfold::annihilate::{CellMesh, annihilate};
-use signfold::comm::Solo;
-use signfold::rng::Stream;
-use signfold::run;
+use signfold::engine::annihilate::{CellMesh, annihilate};
+use signfold::engine::comm::Solo;
+use signfold::engine::start;
+use signfold::physics::flight::advance;
+use signfold::physics::rng::Stream;
 use std::hint::black_box;
 use std::time::{Duration, Instant};
 
@@ -35,7 +35,7 @@ fn main() {
     let set = [format!("numerics.particles={}", target / 2)];
     let setup = support::setup("fermion-pair-coulomb.toml", &set);
     let mesh = CellMesh::new(&setup).expect("cell mesh");
-    let (state, _) = run::initial_state(&setup, &Solo).expect("initial particles");
+    let (state, _) = start::initial_state(&setup, &Solo).expect("initial particles");
     let mut store = state.store;
     let mut step = 0;
     while step < INTERVALS || store.len() < target {

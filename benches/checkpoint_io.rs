@@ -10,13 +10,14 @@
 #[path = "support/mod.rs"]
 mod support;
 
-use signfold::checkpoint;
-use signfold::comm::{Comm, World};
-use signfold::job;
-use signfold::observe::Departed;
-use signfold::particles::Store;
-use signfold::results::ResultFile;
-use signfold::run::State;
+use signfold::config::job;
+use signfold::engine::comm::Comm;
+use signfold::engine::mpi::World;
+use signfold::engine::state::State;
+use signfold::io::checkpoint;
+use signfold::io::results::ResultFile;
+use signfold::physics::estimators::Departed;
+use signfold::physics::particles::Store;
 use std::io::{Read, Write};
 use std::time::Instant;
 
@@ -79,7 +80,7 @@ fn main() {
         annihilations: 0,
     };
     let mut results = ResultFile::new(
-        signfold::results::OBSERVABLES_TYPE,
+        signfold::io::results::OBSERVABLES_TYPE,
         &text,
         vec![0.0],
         vec![0.0],

@@ -5,4 +5,6 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 bash scripts/system-packages.sh
 export OMPI_ALLOW_RUN_AS_ROOT=1 OMPI_ALLOW_RUN_AS_ROOT_CONFIRM=1 OMPI_MCA_rmaps_base_oversubscribe=1
+# The config, physics and engine-core layers alone, without MPI, HDF5 or plotters.
+cargo test --release --no-default-features --lib
 cargo test --release "$@"

@@ -1,30 +1,39 @@
 //! signfold: signed-particle Wigner Monte Carlo for a few interacting particles.
+//!
+//! Layers, each depending only on the ones above it (docs: DEVELOPERS.md, "Layout"):
+//!
+//! 1. [`config`] — the job file, overrides, validation, limits;
+//! 2. [`physics`] — orbitals, the initial Wigner function, potentials, the windowed kernel,
+//!    flight, annihilation cells, estimators; no MPI, no files, no printing;
+//! 3. [`engine`] — the particle state of a run, the `Comm` seam to MPI and its collectives,
+//!    the global annihilation reduction, observation, phase timers, stop requests;
+//! 4. [`io`] — every dataset name and format version, result files, checkpoints;
+//! 5. [`runner`] — the driver loop of `run` and `resume`, output-directory policy, progress
+//!    events; [`reference`] — the exact grid solver;
+//! 6. [`analysis`] (compare, statistics), [`viz`] (one chart toolkit, one palette),
+//!    [`study`] (scaling and accuracy drivers).
+//!
+//! The command line (`src/cli/`, in the binary) is the only code that prints. Layers 4–6
+//! need the `app` feature (MPI, HDF5, plotters); `cargo test --no-default-features --lib`
+//! builds and tests layers 1–3 alone.
 #![allow(clippy::needless_range_loop)] // index loops mirror the equations (particle i, pair i<j)
-pub mod accuracy;
-pub mod advance;
-pub mod annihilate;
-pub mod check;
-pub mod checkpoint;
-pub mod colormap;
-pub mod comm;
-pub mod compare;
-pub mod grid;
-pub mod initial;
-pub mod inspect;
-pub mod job;
-pub mod kernel;
-pub mod observe;
-pub mod orbitals;
-pub mod particles;
-pub mod plot;
-pub mod potential;
+
+pub mod config;
+pub mod engine;
+pub mod physics;
+
+#[cfg(feature = "app")]
+pub mod analysis;
+#[cfg(feature = "app")]
+pub mod io;
+#[cfg(feature = "app")]
 pub mod reference;
-pub mod results;
-pub mod rng;
-pub mod run;
-pub mod scaling;
-pub mod setup;
-pub mod units;
+#[cfg(feature = "app")]
+pub mod runner;
+#[cfg(feature = "app")]
+pub mod study;
+#[cfg(feature = "app")]
+pub mod viz;
 
 /// An error already reported by another rank (rank 0): exit non-zero without a message.
 #[derive(Debug)]

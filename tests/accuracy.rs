@@ -17,8 +17,8 @@
 
 mod common;
 use common::*;
-use signfold::accuracy::common_frames;
-use signfold::results::ResultFile;
+use signfold::io::results::ResultFile;
+use signfold::study::accuracy::common_frames;
 use std::path::Path;
 
 fn reference(dir: &Path, job: &Path, extra: &[&str]) -> ResultFile {

@@ -5,7 +5,7 @@
 mod common;
 
 use common::*;
-use signfold::results::ResultFile;
+use signfold::io::results::ResultFile;
 use std::os::unix::process::CommandExt;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -51,9 +51,9 @@ fn uninterrupted(tmp: &Path) -> ResultFile {
 }
 
 fn checkpoints(dir: &Path) -> Vec<PathBuf> {
-    signfold::checkpoint::list(dir)
+    signfold::io::checkpoint::list(dir)
         .into_iter()
-        .map(|s| signfold::checkpoint::particle_path(dir, s))
+        .map(|s| signfold::io::checkpoint::particle_path(dir, s))
         .collect()
 }
 
@@ -272,7 +272,7 @@ fn failed_writes_are_clean_errors() {
     let out = tmp.path().join("blocked");
     let o = out.to_str().unwrap();
     ok(&signfold(&args("run", &job(), o, &["--until", "20"])));
-    let tmp_path = signfold::checkpoint::particle_path(&out, 30).with_extension("h5.tmp");
+    let tmp_path = signfold::io::checkpoint::particle_path(&out, 30).with_extension("h5.tmp");
     std::fs::create_dir(&tmp_path).unwrap();
     let res = mpirun(2, &["resume", o, "--until", "30"]);
     assert!(!res.status.success());

@@ -3,7 +3,7 @@
 mod common;
 
 use common::*;
-use signfold::results::ResultFile;
+use signfold::io::results::ResultFile;
 
 fn run_demo(name: &str) -> ResultFile {
     let dir = tempfile::tempdir().unwrap();

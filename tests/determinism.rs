@@ -5,7 +5,7 @@
 mod common;
 
 use common::*;
-use signfold::results::ResultFile;
+use signfold::io::results::ResultFile;
 use std::path::Path;
 
 fn run_with(dir: &Path, ranks: usize, threads: usize, job: &Path, extra: &[&str]) -> ResultFile {

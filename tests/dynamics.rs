@@ -4,7 +4,7 @@
 mod common;
 
 use common::*;
-use signfold::units;
+use signfold::physics::units;
 
 const MASS: f64 = 0.067;
 
@@ -142,18 +142,19 @@ fn sign_bookkeeping_is_exact() {
     }
     // Interval by interval by hand, with integer counts (no annihilation here, so the
     // count grows like e^{2Γt}: keep it short).
-    let loaded = signfold::job::load(
+    let loaded = signfold::config::job::load(
         &demo("barrier-packet.toml"),
         &["numerics.particles=2000".into()],
     )
     .unwrap();
-    let setup = signfold::setup::Setup::new(&loaded).unwrap();
-    let (state, _) = signfold::run::initial_state(&setup, &signfold::comm::Solo).unwrap();
+    let setup = signfold::physics::numerics::Setup::new(&loaded).unwrap();
+    let (state, _) =
+        signfold::engine::start::initial_state(&setup, &signfold::engine::comm::Solo).unwrap();
     let mut store = state.store;
     let mut events = 0;
     for interval in 0..25 {
         let before = store.net_sign();
-        let (after, tally) = signfold::advance::advance(&setup, &store, interval);
+        let (after, tally) = signfold::physics::flight::advance(&setup, &store, interval);
         let gone: i64 = tally
             .absorbed_left
             .iter()

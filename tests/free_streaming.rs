@@ -12,7 +12,7 @@ mod common;
 use common::*;
 use nalgebra::DMatrix;
 use num_complex::Complex64 as C;
-use signfold::units;
+use signfold::physics::units;
 
 const MASS: f64 = 0.067;
 const GROUPS: usize = 32;
@@ -195,7 +195,7 @@ fn check_against_exact(
     stats: &'static str,
     orbs: &[Orb],
     particles: u64,
-) -> (signfold::results::ResultFile, Exact) {
+) -> (signfold::io::results::ResultFile, Exact) {
     let dir = tempfile::tempdir().unwrap();
     let job = write_job(dir.path(), "free.toml", &job(stats, orbs, particles));
     let r = run_job(dir.path(), &job, &[]);
@@ -315,7 +315,7 @@ fn free_fermion_pair_matches_exact_and_shows_the_exchange_hole() {
 /// configuration falls in at most one diagonal bin, so those bins share no particle and
 /// their errors add in quadrature.
 fn diagonal_vs_distinguishable(
-    r: &signfold::results::ResultFile,
+    r: &signfold::io::results::ResultFile,
     orbs: &[Orb],
     t: f64,
 ) -> (f64, f64, f64) {

@@ -5,10 +5,10 @@
 
 mod common;
 
-use signfold::job;
-use signfold::kernel::KernelTable;
-use signfold::setup::Setup;
-use signfold::units::HBAR;
+use signfold::config::job;
+use signfold::physics::kernel::KernelTable;
+use signfold::physics::numerics::Setup;
+use signfold::physics::units::HBAR;
 
 /// Derivatives of f by central differences of step h (truncation O(h²), below 1e-7 here).
 fn d1(f: &dyn Fn(f64) -> f64, x: f64, h: f64) -> f64 {

@@ -1,7 +1,7 @@
 //! The `plot` and `inspect` commands, run as a user would run them on result files.
 
-use signfold::plot::{DENSITY_SIZE, HISTORY_SIZE, PAIR_SIZE, WIGNER_SIZE};
-use signfold::results::{self, ResultFile};
+use signfold::io::results::{self, ResultFile};
+use signfold::viz::plot::{DENSITY_SIZE, HISTORY_SIZE, PAIR_SIZE, WIGNER_SIZE};
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output, Stdio};
 use std::sync::Mutex;

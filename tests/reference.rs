@@ -1,11 +1,11 @@
 //! The exact reference solver against closed forms, and the `reference`/`compare` commands.
 //! Each check names its source; every tolerance says where it comes from.
 
-use signfold::job::{LoadedJob, from_text};
-use signfold::orbitals::{Gaussian, overlap};
+use signfold::config::job::{LoadedJob, from_text};
+use signfold::io::results::{ResultFile, Series};
+use signfold::physics::orbitals::{Gaussian, overlap};
+use signfold::physics::units::{self, HBAR};
 use signfold::reference::{ReferenceOptions, solve_with};
-use signfold::results::{ResultFile, Series};
-use signfold::units::{self, HBAR};
 use std::f64::consts::PI;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -487,7 +487,7 @@ fn fermions_have_an_exchange_hole_and_bosons_bunch() {
     }
     // Bosons against distinguishable particles in the same orbitals, at t = 0: on the
     // diagonal n₂ᴮ(x,x) = 4|φ_aφ_b|²/(1 + |S|²) and n₂ᴰ(x,x) = 2|φ_aφ_b|², so the ratio is
-    // 2/(1 + |S|²) everywhere (symmetry of ψ; normalisation 2(1 + |S|²) from physics.md §1).
+    // 2/(1 + |S|²) everywhere (symmetry of ψ; normalisation 2(1 + |S|²) from docs/method.md §1).
     let close = [(-1.5, 0.0, 2.0), (1.5, 0.0, 2.0)];
     let boson = two_particles(
         "boson",
@@ -543,7 +543,7 @@ fn fermions_have_an_exchange_hole_and_bosons_bunch() {
 
 #[test]
 fn one_particle_wigner_function_integrates_over_k_to_the_density() {
-    // ∫ W dk = |ψ(x)|² (definition of the Wigner function, physics.md §1).
+    // ∫ W dk = |ψ(x)|² (definition of the Wigner function, docs/method.md §1).
     let extra = "[[potential]]\nkind = \"gaussian\"\ncentre = 4.0\nwidth = 1.5\nheight = 0.15\n";
     let job = one_particle(
         "reflecting",
@@ -576,7 +576,7 @@ fn one_particle_wigner_function_integrates_over_k_to_the_density() {
 
 #[test]
 fn absorbing_reference_keeps_only_configurations_with_all_particles_inside() {
-    // physics.md §5: a configuration is gone once any particle has left. Particle 1 runs out
+    // docs/method.md §5: a configuration is gone once any particle has left. Particle 1 runs out
     // to the right while particle 2 stays in the middle: the norm inside must fall to zero
     // although particle 2 never leaves, and ∫n = N·norm throughout.
     let job = two_particles(

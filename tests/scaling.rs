@@ -7,8 +7,8 @@
 mod common;
 
 use common::{demo, mpirun, ok};
-use signfold::results::ResultFile;
-use signfold::run::PHASES;
+use signfold::engine::timers::PHASES;
+use signfold::io::results::ResultFile;
 use std::collections::BTreeMap;
 use std::path::Path;
 use std::process::Command;
@@ -291,7 +291,7 @@ fn slurm_template_resumes_and_detects_completion() {
     first.extend(overrides);
     ok(&common::signfold(&first));
     assert!(
-        signfold::checkpoint::list(&dir).len() == 1,
+        signfold::io::checkpoint::list(&dir).len() == 1,
         "--until leaves one checkpoint"
     );
     let path = format!("{}:{}", bin.display(), std::env::var("PATH").unwrap());

@@ -2,9 +2,9 @@
 //! description and the CSV summaries under `scaling-results/`.
 #![allow(dead_code)]
 
-use signfold::job;
-use signfold::particles::Store;
-use signfold::setup::Setup;
+use signfold::config::job;
+use signfold::physics::numerics::Setup;
+use signfold::physics::particles::Store;
 use std::path::PathBuf;
 use std::time::Duration;
 
@@ -78,7 +78,7 @@ pub fn machine() -> String {
         .and_then(|l| l.split_once(':'))
         .map_or("unknown CPU".to_string(), |(_, v)| v.trim().to_string());
     let cores = std::thread::available_parallelism().map_or(0, |n| n.get());
-    let gib = signfold::setup::machine_memory() / (1u64 << 30) as f64;
+    let gib = signfold::physics::numerics::machine_memory() / (1u64 << 30) as f64;
     format!("{model}, {cores} cores, {gib:.0} GiB")
 }
 

@@ -1,4 +1,4 @@
-//! Bin averages of sampled functions over the output bins (physics.md §4: every dataset is
+//! Bin averages of sampled functions over the output bins (docs/method.md §4: every dataset is
 //! a bin average). Public so that anything holding a function on a fine grid (a closed
 //! form, a grid solution) can produce numbers comparable with the Monte Carlo histograms.
 //!
@@ -7,7 +7,7 @@
 //! overlap: for samples whose cells cover the bin this is the integral of the piecewise-
 //! constant interpolant divided by the bin width.
 
-use crate::grid::Bins;
+use crate::physics::grid::Bins;
 
 #[derive(Clone, Debug)]
 pub struct BinAverage {

@@ -61,7 +61,7 @@ impl LineOp {
 
     /// Multiplier exp(−iħk²Δt/(2m)) (normalisation of the inverse FFT included).
     pub fn kinetic_multiplier(&self, dt: f64, mass: f64) -> Vec<C> {
-        let hbar = crate::units::HBAR;
+        let hbar = crate::physics::units::HBAR;
         let norm = 1.0 / self.len as f64;
         self.k
             .iter()

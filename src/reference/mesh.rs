@@ -9,9 +9,9 @@
 //!   a complex absorbing potential −iW(x), W = W₀ s² (s the fractional depth into the
 //!   padding). Cell edges fall on the domain edges, so "inside" is a whole number of cells.
 
-use crate::job::{Boundary, Job, PotentialTerm};
-use crate::orbitals::Gaussian;
-use crate::units;
+use crate::config::job::{Boundary, Job, PotentialTerm};
+use crate::physics::orbitals::Gaussian;
+use crate::physics::units;
 use anyhow::{Result, bail};
 use std::ops::Range;
 

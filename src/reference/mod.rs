@@ -12,11 +12,12 @@ pub mod mesh;
 mod observe;
 mod state;
 
-use crate::grid;
-use crate::job::LoadedJob;
-use crate::potential::{OneBody, PairPotential};
-use crate::results::{REFERENCE_TYPE, ResultFile};
-use crate::units;
+use crate::config::job::LoadedJob;
+use crate::io::names;
+use crate::io::results::{REFERENCE_TYPE, ResultFile};
+use crate::physics::grid;
+use crate::physics::potential::{OneBody, PairPotential};
+use crate::physics::units;
 use anyhow::{Result, bail};
 use binavg::BinAverage;
 use lines::{LineOp, Shape, apply_axis};
@@ -79,12 +80,17 @@ impl std::fmt::Display for Plan {
 }
 
 /// Progress after each output time.
-#[derive(Clone, Copy, Debug)]
-pub struct Progress {
-    pub time: f64,
-    pub end_time: f64,
-    pub norm: f64,
-    pub energy: f64,
+#[derive(Clone, Debug)]
+pub enum Progress {
+    /// A warning about the job or the grid (does not stop the solver).
+    Warning(String),
+    /// An output time was reached.
+    Output {
+        time: f64,
+        end_time: f64,
+        norm: f64,
+        energy: f64,
+    },
 }
 
 struct Solver {
@@ -183,7 +189,7 @@ fn default_dt(loaded: &LoadedJob, axis: &Axis, shape: Shape, v: &[f64]) -> f64 {
         .orbitals
         .iter()
         .map(|o| {
-            let g = crate::orbitals::Gaussian::from(o);
+            let g = crate::physics::orbitals::Gaussian::from(o);
             g.k0.abs() + 3.0 / (2.0 * g.sigma)
         })
         .fold(0.0, f64::max);
@@ -321,7 +327,7 @@ impl Solver {
     }
 
     /// Norm that has left the domain through each side: removed by the absorber, plus
-    /// what is outside now (physics.md §5: a configuration counts as gone as soon as any
+    /// what is outside now (docs/method.md §5: a configuration counts as gone as soon as any
     /// particle is outside). With norm inside, the three add up to 1 to round-off.
     fn absorbed(&self) -> (f64, f64) {
         if self.axis.kind != AxisKind::Padded {
@@ -355,7 +361,7 @@ pub fn solve_with(
     let (v, cap) = build_potential(&axis, shape, &one, pair);
     let (psi, warnings) = state::initial_state(job, &axis, shape)?;
     for w in plan.warnings.iter().chain(&warnings) {
-        eprintln!("signfold: warning: {}: {w}", loaded.origin);
+        progress(&Progress::Warning(format!("{}: {w}", loaded.origin)));
     }
     let mut s = Solver {
         shape,
@@ -398,19 +404,19 @@ pub fn solve_with(
         let (absorbed_l, absorbed_r) = s.absorbed();
         let nx = out_bins.x.bins();
         let nk = out_bins.k_wigner.bins();
-        file.push("time", "fs", &[], &[t_out]);
-        file.push("density", "1/nm", &[nx], &fr.density);
+        file.put(names::TIME, &[], &[t_out]);
+        file.put(names::DENSITY, &[nx], &fr.density);
         if let Some(p) = &fr.pair {
-            file.push("pair_density", "1/nm^2", &[nx, nx], p);
+            file.put(names::PAIR_DENSITY, &[nx, nx], p);
         }
-        file.push("wigner", "1", &[nx, nk], &fr.wigner);
-        file.push("momentum_density", "nm", &[nk], &fr.momentum);
-        file.push("current_density", "1/fs", &[nx], &fr.current);
-        file.push("norm", "1", &[], &[fr.norm]);
-        file.push("absorbed_left", "1", &[], &[absorbed_l]);
-        file.push("absorbed_right", "1", &[], &[absorbed_r]);
-        file.push("energy", "eV", &[], &[fr.energy]);
-        progress(&Progress {
+        file.put(names::WIGNER, &[nx, nk], &fr.wigner);
+        file.put(names::MOMENTUM_DENSITY, &[nk], &fr.momentum);
+        file.put(names::CURRENT_DENSITY, &[nx], &fr.current);
+        file.put(names::NORM, &[], &[fr.norm]);
+        file.put(names::ABSORBED_LEFT, &[], &[absorbed_l]);
+        file.put(names::ABSORBED_RIGHT, &[], &[absorbed_r]);
+        file.put(names::ENERGY, &[], &[fr.energy]);
+        progress(&Progress::Output {
             time: t_out,
             end_time: end,
             norm: fr.norm,
@@ -419,59 +425,17 @@ pub fn solve_with(
     }
     let a = &s.axis;
     let run = [
-        ("reference_points_per_axis", "1", a.n as f64),
-        ("reference_dx", "nm", a.dx),
-        ("reference_max_dt", "fs", plan.dt),
-        ("reference_padding", "nm", a.pad as f64 * a.dx),
-        ("wall_time", "s", started.elapsed().as_secs_f64()),
+        (names::RUN_REFERENCE_POINTS, a.n as f64),
+        (names::RUN_REFERENCE_DX, a.dx),
+        (names::RUN_REFERENCE_MAX_DT, plan.dt),
+        (names::RUN_REFERENCE_PADDING, a.pad as f64 * a.dx),
+        (names::RUN_WALL_TIME, started.elapsed().as_secs_f64()),
     ];
-    for (name, units, value) in run {
+    for (d, value) in run {
         file.run
-            .insert(name.to_string(), (units.to_string(), vec![value]));
+            .insert(d.name.to_string(), (d.units.to_string(), vec![value]));
     }
     Ok(file)
-}
-
-/// The `reference` command: load the job, refuse to overwrite DIR/reference.h5 unless
-/// `force`, solve, write the file atomically. Prints the plan and progress to stdout.
-pub fn command(
-    job: &std::path::Path,
-    out: &std::path::Path,
-    overrides: &[String],
-    force: bool,
-    opts: &ReferenceOptions,
-) -> Result<()> {
-    let loaded = crate::job::load(job, overrides)?;
-    let target = out.join("reference.h5");
-    if target.exists() && !force {
-        bail!(
-            "{} already exists: pass --force to overwrite it",
-            target.display()
-        );
-    }
-    use std::io::Write as _;
-    // A closed stdout (e.g. piped into `head`) must not stop the solver.
-    let say = |text: String| {
-        let _ = writeln!(std::io::stdout(), "{text}");
-    };
-    let p = plan(&loaded, opts)?;
-    say(p.to_string());
-    std::fs::create_dir_all(out)
-        .map_err(|e| anyhow::anyhow!("cannot create {}: {e}", out.display()))?;
-    let started = std::time::Instant::now();
-    let file = solve_with(&loaded, opts, &mut |pr| {
-        say(format!(
-            "t = {:>9.3} / {} fs   norm inside {:.8}   energy {:.8} eV   ({:.1} s)",
-            pr.time,
-            pr.end_time,
-            pr.norm,
-            pr.energy,
-            started.elapsed().as_secs_f64()
-        ));
-    })?;
-    file.write_atomic(&target)?;
-    say(format!("wrote {}", target.display()));
-    Ok(())
 }
 
 /// Bin averagers from the solver's samples to the output bins.

@@ -1,7 +1,7 @@
 //! Observables from the grid state ψ: reduced density matrices, densities, the reduced
 //! one-body Wigner function, momentum density, current, energy and edge fluxes.
 //!
-//! "Inside" means all coordinates inside the job's domain (physics.md §5): every
+//! "Inside" means all coordinates inside the job's domain (docs/method.md §5): every
 //! observable here is computed from ψ_in, ψ with configurations that have any particle
 //! outside set to zero. For periodic and hard-wall grids ψ_in = ψ.
 

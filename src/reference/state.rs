@@ -1,10 +1,10 @@
 //! The initial state on the grid: the (anti)symmetrised product of the job's orbitals,
-//! normalised numerically (physics.md §1).
+//! normalised numerically (docs/method.md §1).
 
 use super::lines::Shape;
 use super::mesh::Axis;
-use crate::job::{Job, Statistics};
-use crate::orbitals::Gaussian;
+use crate::config::job::{Job, Statistics};
+use crate::physics::orbitals::Gaussian;
 use anyhow::{Result, bail};
 use num_complex::Complex64 as C;
 use rayon::prelude::*;

@@ -1,7 +1,7 @@
 //! Helpers shared by the integration tests: run the binary, write jobs, read results.
 #![allow(dead_code)]
 
-use signfold::results::ResultFile;
+use signfold::io::results::ResultFile;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
 
@@ -83,7 +83,7 @@ pub fn free_gaussian(
     x: f64,
 ) -> num_complex::Complex64 {
     use num_complex::Complex64 as C;
-    let hbar = signfold::units::HBAR;
+    let hbar = signfold::physics::units::HBAR;
     let tau = hbar * t / (2.0 * m * sigma * sigma);
     let v = hbar * k0 / m;
     let one_it = C::new(1.0, tau);

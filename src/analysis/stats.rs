@@ -1,0 +1,1 @@
+//! Statistics of Monte Carlo estimates against exact values.

@@ -1,0 +1,295 @@
+//! The command line: the only code that prints. One file per subcommand; this file holds
+//! the argument schema, the MPI policy and error reporting.
+//!
+//! MPI is initialised only by the commands that run the engine on every rank (`check`,
+//! `run`, `resume`). The serial tools (reference, compare, plot, inspect, scaling,
+//! accuracy) do not initialise MPI; under `mpirun` they act on the launcher's rank 0 only
+//! (see [`launcher_rank`]), so they neither race on their files nor print twice.
+
+mod accuracy;
+mod check;
+mod compare;
+mod inspect;
+mod plot;
+mod reference;
+mod run;
+mod scaling;
+
+use clap::{Parser, Subcommand};
+use signfold::engine::comm::Comm;
+use signfold::engine::mpi::World;
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+#[derive(Parser)]
+#[command(
+    name = "signfold",
+    version,
+    about = "Signed-particle Wigner Monte Carlo for a few interacting particles"
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Subcommand)]
+pub enum Command {
+    /// Validate a job and print its derived numerics, without running.
+    Check {
+        job: PathBuf,
+        /// Override a job key (repeatable), e.g. --set numerics.particles=200000
+        #[arg(long = "set", value_name = "KEY=VALUE")]
+        set: Vec<String>,
+        /// Shortcut for --set numerics.particles=N
+        #[arg(long)]
+        particles: Option<u64>,
+    },
+    /// Run a job, writing DIR/observables.h5.
+    Run {
+        job: PathBuf,
+        #[arg(long)]
+        out: PathBuf,
+        #[arg(long = "set", value_name = "KEY=VALUE")]
+        set: Vec<String>,
+        #[arg(long)]
+        particles: Option<u64>,
+        /// Overwrite results already in DIR.
+        #[arg(long)]
+        force: bool,
+        /// Stop at the first synchronisation time ≥ T (fs).
+        #[arg(long, value_name = "T_FS")]
+        until: Option<f64>,
+        /// Stop with a checkpoint before this much wall time has passed (HH:MM or HH:MM:SS).
+        #[arg(long, value_name = "HH:MM")]
+        walltime: Option<String>,
+        /// rayon threads per rank (default: all cores / ranks on this node).
+        #[arg(long)]
+        threads: Option<usize>,
+    },
+    /// Continue a run from the newest valid checkpoint in DIR, on any number of ranks.
+    Resume {
+        dir: PathBuf,
+        /// Stop again at the first synchronisation time ≥ T (fs).
+        #[arg(long, value_name = "T_FS")]
+        until: Option<f64>,
+        #[arg(long, value_name = "HH:MM")]
+        walltime: Option<String>,
+        #[arg(long)]
+        threads: Option<usize>,
+    },
+    /// Solve the job exactly on a grid (N ≤ 3), writing DIR/reference.h5.
+    Reference {
+        job: PathBuf,
+        #[arg(long)]
+        out: PathBuf,
+        #[arg(long = "set", value_name = "KEY=VALUE")]
+        set: Vec<String>,
+        #[arg(long)]
+        force: bool,
+        /// Grid points per axis (default: chosen from the job).
+        #[arg(long)]
+        points: Option<usize>,
+        /// Largest time step, fs (default: chosen from the job).
+        #[arg(long, value_name = "FS")]
+        dt: Option<f64>,
+    },
+    /// Compare two result files observable by observable.
+    Compare {
+        a: PathBuf,
+        b: PathBuf,
+        /// Exit 1 when a density distance exceeds X (relative L1).
+        #[arg(long)]
+        tolerance: Option<f64>,
+    },
+    /// Write PNG pictures of a result file.
+    Plot {
+        file: PathBuf,
+        #[arg(long)]
+        out: PathBuf,
+        /// Comma-separated output times (fs); default: first, middle, last.
+        #[arg(long, value_delimiter = ',')]
+        times: Option<Vec<f64>>,
+        /// A second file (e.g. reference.h5) drawn on the same axes.
+        #[arg(long)]
+        against: Option<PathBuf>,
+    },
+    /// Print what a result or checkpoint file holds.
+    Inspect { file: PathBuf },
+    /// Strong and weak scaling series: launch `run` at several rank counts, write CSV and PNG.
+    Scaling(signfold::study::scaling::Options),
+    /// Measure the Monte Carlo against the exact reference over particle counts and
+    /// coherence lengths for the demo jobs (see docs/accuracy.md).
+    Accuracy(signfold::study::accuracy::Options),
+}
+
+/// Entry point of the binary.
+pub fn main() -> ExitCode {
+    let cli = Cli::parse();
+    signfold::engine::stop::ignore_file_size_signal();
+    let parallel = matches!(
+        cli.command,
+        Command::Check { .. } | Command::Run { .. } | Command::Resume { .. }
+    );
+    if !parallel {
+        if launcher_rank() > 0 {
+            return ExitCode::SUCCESS;
+        }
+        return match serial(cli.command) {
+            Ok(code) => code,
+            Err(e) => {
+                eprintln!("signfold: error: {e:#}");
+                ExitCode::from(2)
+            }
+        };
+    }
+    let Some(universe) = mpi::initialize() else {
+        eprintln!("signfold: error: MPI could not be initialised");
+        return ExitCode::from(2);
+    };
+    let world = World::new(universe.world());
+    let root = world.is_root();
+    match engine_command(cli.command, &world) {
+        Ok(code) => code,
+        Err(e) => {
+            // Collective errors are printed once, by rank 0; a rank-local error is printed
+            // by its rank.
+            if e.downcast_ref::<signfold::SilentError>().is_none()
+                && (root || world.size() == 1 || !is_collective(&e))
+            {
+                if world.size() > 1 && !root {
+                    eprintln!("signfold: error (rank {}): {e:#}", world.rank());
+                } else {
+                    eprintln!("signfold: error: {e:#}");
+                }
+            }
+            ExitCode::from(2)
+        }
+    }
+}
+
+/// This process's rank as the MPI launcher announced it (0 without a launcher). Read from
+/// the variables the common launchers set (Open MPI, PMIx, PMI-1/2 as used by MPICH, Intel
+/// MPI and Slurm's srun, MVAPICH), because the serial tools do not initialise MPI.
+fn launcher_rank() -> u64 {
+    [
+        "OMPI_COMM_WORLD_RANK",
+        "PMIX_RANK",
+        "PMI_RANK",
+        "MV2_COMM_WORLD_RANK",
+    ]
+    .iter()
+    .find_map(|v| std::env::var(v).ok().and_then(|s| s.parse().ok()))
+    .unwrap_or(0)
+}
+
+/// Errors every rank reaches together (job validation, collective checks).
+fn is_collective(e: &anyhow::Error) -> bool {
+    e.downcast_ref::<Collective>().is_some()
+}
+
+/// Marks an error that all ranks raise identically.
+#[derive(Debug)]
+struct Collective(String);
+
+impl std::fmt::Display for Collective {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str(&self.0)
+    }
+}
+
+impl std::error::Error for Collective {}
+
+fn collective<T>(r: anyhow::Result<T>) -> anyhow::Result<T> {
+    r.map_err(|e| Collective(format!("{e:#}")).into())
+}
+
+fn with_particles(mut set: Vec<String>, particles: Option<u64>) -> Vec<String> {
+    if let Some(n) = particles {
+        set.push(format!("numerics.particles={n}"));
+    }
+    set
+}
+
+/// One rayon pool per rank: `--threads`, or this node's cores shared among the ranks on
+/// the node (a node-local communicator split, so any MPI implementation works).
+fn configure_threads(threads: Option<usize>, world: &World) -> anyhow::Result<()> {
+    let local_ranks = world.ranks_on_node().max(1);
+    let cores = std::thread::available_parallelism()
+        .map(|n| n.get())
+        .unwrap_or(1);
+    let n = threads.unwrap_or((cores / local_ranks).max(1));
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(n)
+        .build_global()
+        .map_err(|e| anyhow::anyhow!("thread pool: {e}"))
+}
+
+fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
+    match cmd {
+        Command::Check {
+            job,
+            set,
+            particles,
+        } => {
+            configure_threads(None, world)?;
+            check::command(&job, &with_particles(set, particles), world)
+        }
+        Command::Run {
+            job,
+            out,
+            set,
+            particles,
+            force,
+            until,
+            walltime,
+            threads,
+        } => {
+            configure_threads(threads, world)?;
+            let opts = run::RunArgs {
+                job,
+                out,
+                set: with_particles(set, particles),
+                force,
+                until,
+                walltime,
+            };
+            run::run(opts, world)
+        }
+        Command::Resume {
+            dir,
+            until,
+            walltime,
+            threads,
+        } => {
+            configure_threads(threads, world)?;
+            run::resume(&dir, until, walltime, world)
+        }
+        _ => unreachable!("serial commands are dispatched by `serial`"),
+    }
+}
+
+fn serial(cmd: Command) -> anyhow::Result<ExitCode> {
+    match cmd {
+        Command::Plot {
+            file,
+            out,
+            times,
+            against,
+        } => plot::command(&file, &out, times.as_deref(), against.as_deref()),
+        Command::Inspect { file } => inspect::command(&file),
+        Command::Reference {
+            job,
+            out,
+            set,
+            force,
+            points,
+            dt,
+        } => reference::command(&job, &out, &set, force, points, dt),
+        Command::Scaling(opts) => scaling::command(&opts),
+        Command::Accuracy(opts) => accuracy::command(&opts),
+        Command::Compare { a, b, tolerance } => compare::command(&a, &b, tolerance),
+        Command::Check { .. } | Command::Run { .. } | Command::Resume { .. } => {
+            unreachable!("engine commands are dispatched by `engine_command`")
+        }
+    }
+}

@@ -1,0 +1,16 @@
+//! `signfold plot`: PNG pictures of a result file; prints the paths written.
+
+use std::path::Path;
+use std::process::ExitCode;
+
+pub fn command(
+    file: &Path,
+    out: &Path,
+    times: Option<&[f64]>,
+    against: Option<&Path>,
+) -> anyhow::Result<ExitCode> {
+    for path in signfold::viz::plot::plot(file, out, times, against)? {
+        println!("{}", path.display());
+    }
+    Ok(ExitCode::SUCCESS)
+}

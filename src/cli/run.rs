@@ -1,0 +1,125 @@
+//! `signfold run` and `signfold resume`: the engine on every rank, progress printed by
+//! rank 0 as plain lines (no carriage returns: a terminal and a batch log read the same).
+
+use super::collective;
+use signfold::engine::mpi::World;
+use signfold::engine::stop::{install_signals, parse_walltime};
+use signfold::physics::numerics::Setup;
+use signfold::runner::driver::{self, RunOptions};
+use signfold::runner::progress::{Progress, StopReason};
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+/// Arguments of `run`.
+pub struct RunArgs {
+    pub job: PathBuf,
+    pub out: PathBuf,
+    pub set: Vec<String>,
+    pub force: bool,
+    pub until: Option<f64>,
+    pub walltime: Option<String>,
+}
+
+pub fn run(args: RunArgs, world: &World) -> anyhow::Result<ExitCode> {
+    install_signals()?;
+    let walltime = collective(args.walltime.as_deref().map(parse_walltime).transpose())?;
+    let loaded = collective(signfold::config::job::load(&args.job, &args.set))?;
+    let setup = collective(Setup::new(&loaded))?;
+    let opts = RunOptions {
+        out: args.out,
+        force: args.force,
+        until: args.until,
+        walltime,
+    };
+    collective(driver::run(&loaded, &setup, &opts, world, &mut show))?;
+    Ok(ExitCode::SUCCESS)
+}
+
+pub fn resume(
+    dir: &Path,
+    until: Option<f64>,
+    walltime: Option<String>,
+    world: &World,
+) -> anyhow::Result<ExitCode> {
+    install_signals()?;
+    let walltime = collective(walltime.as_deref().map(parse_walltime).transpose())?;
+    collective(driver::resume(dir, until, walltime, world, &mut show))?;
+    Ok(ExitCode::SUCCESS)
+}
+
+fn hms(s: f64) -> String {
+    let s = s.max(0.0).round() as u64;
+    format!("{:02}:{:02}:{:02}", s / 3600, (s / 60) % 60, s % 60)
+}
+
+/// Print one progress event (the driver emits them on rank 0 only).
+fn show(p: Progress) {
+    match p {
+        Progress::Started {
+            particles,
+            ranks,
+            threads,
+            abs_over_net,
+            dropped,
+        } => println!(
+            "signfold: {particles} particles at t = 0 on {ranks} rank(s) ({threads} threads each); ∫|W|/∫W = {abs_over_net:.3}{}",
+            if dropped > 0 {
+                format!("; {dropped} outside domain or momentum range, not kept")
+            } else {
+                String::new()
+            }
+        ),
+        Progress::Resumed {
+            dir,
+            time_fs,
+            step,
+            ranks,
+        } => println!(
+            "signfold: resuming {} at t = {time_fs} fs (step {step}) on {ranks} rank(s)",
+            dir.display()
+        ),
+        Progress::Step {
+            time_fs,
+            end_fs,
+            particles,
+            norm,
+            events_per_s,
+            elapsed_s,
+            left_s,
+        } => println!(
+            "t {time_fs:>8.2} / {end_fs:.2} fs | particles {particles:>10} | norm {norm:.5} | events/s {events_per_s:>9.3e} | elapsed {} | left {}",
+            hms(elapsed_s),
+            hms(left_s)
+        ),
+        Progress::Stopped { time_fs, why, dir } => {
+            let why = match why {
+                StopReason::Signal => "stop signal",
+                StopReason::Walltime => "--walltime",
+                StopReason::Until => "--until",
+            };
+            println!(
+                "signfold: stopped at t = {time_fs} fs ({why}); checkpoint written, continue with `signfold resume {}`",
+                dir.display()
+            )
+        }
+        Progress::Finished {
+            path,
+            outputs,
+            elapsed_s,
+        } => println!(
+            "signfold: wrote {} ({outputs} outputs) in {}",
+            path.display(),
+            hms(elapsed_s)
+        ),
+        Progress::Warning(w) => eprintln!("signfold: warning: {w}"),
+        Progress::Phases(rows) => {
+            println!("phase          sum over ranks (s)   max over ranks (s)   max/mean");
+            for r in rows {
+                println!(
+                    "{:<14} {:>18.3} {:>20.3} {:>10.3}",
+                    r.name, r.sum, r.max, r.imbalance
+                );
+            }
+        }
+    }
+}

@@ -1,0 +1,12 @@
+//! `signfold scaling`: strong, weak and threads series launched through the MPI launcher.
+
+use signfold::study::scaling;
+use std::process::ExitCode;
+
+pub fn command(opts: &scaling::Options) -> anyhow::Result<ExitCode> {
+    scaling::save_starting_environment();
+    for path in scaling::drive(opts, &mut |line| println!("{line}"))? {
+        println!("{}", path.display());
+    }
+    Ok(ExitCode::SUCCESS)
+}

@@ -1,0 +1,121 @@
+//! Every name a file written by signfold carries: datasets with their units, attributes,
+//! groups, file-type words, format versions and file names (docs/formats.md). No dataset
+//! name appears as a string literal anywhere else in the library.
+
+/// A dataset of a result file: its name and the units written in its `units` attribute.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Dataset {
+    pub name: &'static str,
+    pub units: &'static str,
+}
+
+const fn ds(name: &'static str, units: &'static str) -> Dataset {
+    Dataset { name, units }
+}
+
+/// Version of the result-file layout (observables.h5, reference.h5); checked on reading.
+pub const FORMAT_VERSION: u32 = 1;
+/// Version of the checkpoint layout; checked on resume.
+pub const CHECKPOINT_FORMAT: u32 = 1;
+/// File-type words (root attribute [`ATTR_FILE_TYPE`]).
+pub const OBSERVABLES_TYPE: &str = "signfold-observables";
+pub const REFERENCE_TYPE: &str = "signfold-reference";
+pub const CHECKPOINT_TYPE: &str = "signfold-checkpoint";
+
+/// Files in an output directory.
+pub const OBSERVABLES_FILE: &str = "observables.h5";
+pub const REFERENCE_FILE: &str = "reference.h5";
+pub const JOB_COPY_FILE: &str = "job.toml";
+
+/// Root attributes of result files and checkpoints.
+pub const ATTR_FILE_TYPE: &str = "file_type";
+pub const ATTR_JOB: &str = "job";
+pub const ATTR_PROGRAM_VERSION: &str = "program_version";
+pub const ATTR_FORMAT_VERSION: &str = "format_version";
+/// The attribute every dataset carries with its units.
+pub const ATTR_UNITS: &str = "units";
+
+/// Axes.
+pub const TIME: Dataset = ds("time", "fs");
+pub const X: Dataset = ds("x", "nm");
+pub const K: Dataset = ds("k", "1/nm");
+
+/// Observables (each Monte Carlo observable also has `<name>_error`, same units).
+pub const DENSITY: Dataset = ds("density", "1/nm");
+pub const PAIR_DENSITY: Dataset = ds("pair_density", "1/nm^2");
+pub const WIGNER: Dataset = ds("wigner", "1");
+pub const MOMENTUM_DENSITY: Dataset = ds("momentum_density", "nm");
+pub const CURRENT_DENSITY: Dataset = ds("current_density", "1/fs");
+pub const NORM: Dataset = ds("norm", "1");
+pub const ABSORBED_LEFT: Dataset = ds("absorbed_left", "1");
+pub const ABSORBED_RIGHT: Dataset = ds("absorbed_right", "1");
+pub const NORM_RIGHT: Dataset = ds("norm_right", "1");
+pub const LOST_NORM: Dataset = ds("lost_norm", "1");
+pub const ENERGY: Dataset = ds("energy", "eV");
+pub const MEAN_X: Dataset = ds("mean_x", "nm");
+pub const MEAN_K: Dataset = ds("mean_k", "1/nm");
+pub const MEAN_FORCE: Dataset = ds("mean_force", "eV/nm");
+/// Live Monte Carlo samples per output: all, positive, negative.
+pub const PARTICLES: Dataset = ds("particles", "1");
+pub const PARTICLES_POSITIVE: Dataset = ds("particles_positive", "1");
+pub const PARTICLES_NEGATIVE: Dataset = ds("particles_negative", "1");
+
+/// The binned observables compared by relative L1 distance.
+pub const DENSITY_LIKE: [Dataset; 4] = [DENSITY, PAIR_DENSITY, WIGNER, MOMENTUM_DENSITY];
+
+/// Suffix of the standard-error dataset of an observable.
+pub const ERROR_SUFFIX: &str = "_error";
+
+/// `<name>_error`.
+pub fn error_of(name: &str) -> String {
+    format!("{name}{ERROR_SUFFIX}")
+}
+
+/// Per-annihilation records (one value per annihilation, not per output).
+pub const ANNIHILATION_PREFIX: &str = "annihilation_";
+pub const ANNIHILATION_TIME: Dataset = ds("annihilation_time", "fs");
+pub const ANNIHILATION_BEFORE: Dataset = ds("annihilation_before", "1");
+pub const ANNIHILATION_CANCELLED: Dataset = ds("annihilation_cancelled", "1");
+
+/// The group of machine- and run-dependent figures.
+pub const RUN_GROUP: &str = "run";
+/// `/run/seconds_<phase>` (s, one per rank).
+pub const RUN_SECONDS_PREFIX: &str = "seconds_";
+pub const RUN_WALL_SECONDS: Dataset = ds("wall_seconds", "s");
+pub const RUN_BYTES_SENT: Dataset = ds("bytes_sent", "B");
+pub const RUN_OCCUPIED_CELLS: Dataset = ds("occupied_cells", "1");
+pub const RUN_RANKS: Dataset = ds("ranks", "1");
+pub const RUN_THREADS: Dataset = ds("threads", "1");
+/// Reference-solver figures under `/run`.
+pub const RUN_REFERENCE_POINTS: Dataset = ds("reference_points_per_axis", "1");
+pub const RUN_REFERENCE_DX: Dataset = ds("reference_dx", "nm");
+pub const RUN_REFERENCE_MAX_DT: Dataset = ds("reference_max_dt", "fs");
+pub const RUN_REFERENCE_PADDING: Dataset = ds("reference_padding", "nm");
+pub const RUN_WALL_TIME: Dataset = ds("wall_time", "s");
+
+/// Checkpoint layout: attributes, groups and datasets.
+pub mod checkpoint {
+    pub const ATTR_JOB_DIR: &str = "job_dir";
+    pub const ATTR_TIME: &str = "time";
+    pub const ATTR_STEP: &str = "step";
+    pub const ATTR_INITIAL_COUNT: &str = "initial_count";
+    pub const ATTR_ANNIHILATIONS: &str = "annihilations";
+    pub const ATTR_PARTICLES: &str = "particles";
+    pub const ATTR_COORDINATES: &str = "coordinates";
+    pub const ATTR_CHECKSUM: &str = "checksum";
+    /// Written last: the file is complete.
+    pub const ATTR_COMPLETE: &str = "complete";
+    pub const STATE_GROUP: &str = "state";
+    pub const S0: &str = "s0";
+    pub const ABSORBED_LEFT: &str = "absorbed_left";
+    pub const ABSORBED_RIGHT: &str = "absorbed_right";
+    pub const LOST_MOMENTUM: &str = "lost_momentum";
+    pub const PARTICLES_GROUP: &str = "particles";
+    pub const X: &str = "x";
+    pub const K: &str = "k";
+    pub const ID: &str = "id";
+    pub const SIGN: &str = "sign";
+    pub const FILE_PREFIX: &str = "checkpoint-";
+    pub const FILE_SUFFIX: &str = ".h5";
+    pub const RESULTS_SUFFIX: &str = "-results.h5";
+}

@@ -1,0 +1,102 @@
+//! Annihilation cells in phase space (docs/method.md §3): the key of a configuration's
+//! cell, which merges a cell with its exchange images for identical particles.
+
+use crate::config::job::CellKind;
+use crate::physics::numerics::Setup;
+use crate::physics::rng;
+use anyhow::{Result, bail};
+
+/// How cell keys are packed into 128 bits.
+pub struct CellMesh {
+    kind: CellKind,
+    sort: bool,
+    n: usize,
+    x0: f64,
+    k0: f64,
+    cell_x: f64,
+    cell_k: f64,
+    nx: u64,
+    nk: u64,
+    bits_k: u32,
+    bits_one: u32,
+}
+
+fn bits_for(count: u64) -> u32 {
+    64 - (count.max(2) - 1).leading_zeros()
+}
+
+impl CellMesh {
+    pub fn new(setup: &Setup) -> Result<Self> {
+        let width = setup.hi - setup.lo;
+        let (x0, xr, k0, kr) = match setup.cells {
+            CellKind::Full => (setup.lo, width, -setup.k_max, 2.0 * setup.k_max),
+            // Deviations from the centre of mass lie within ±L and ±2 k_max.
+            CellKind::Relative => (-width, 2.0 * width, -2.0 * setup.k_max, 4.0 * setup.k_max),
+        };
+        let nx = (xr / setup.cell_x).ceil() as u64;
+        let nk = (kr / setup.cell_k).ceil() as u64;
+        let bits_k = bits_for(nk);
+        let bits_one = bits_for(nx) + bits_k;
+        let needed = bits_one as usize * setup.n + 16;
+        if needed > 128 {
+            bail!(
+                "annihilation mesh too fine for {} particles: a cell key needs {needed} bits (> 128) with {nx} × {nk} \
+                 cells per particle; enlarge annihilation.cell_x or annihilation.cell_k",
+                setup.n
+            );
+        }
+        Ok(CellMesh {
+            kind: setup.cells,
+            sort: setup.merge_exchange,
+            n: setup.n,
+            x0,
+            k0,
+            cell_x: setup.cell_x,
+            cell_k: setup.cell_k,
+            nx,
+            nk,
+            bits_k,
+            bits_one,
+        })
+    }
+
+    /// Occupied-cell capacity of the mesh (its volume), for reports.
+    pub fn volume(&self) -> f64 {
+        ((self.nx * self.nk) as f64).powi(self.n as i32)
+    }
+
+    /// Key of a particle: group in the top bits, then the (sorted) per-particle cells.
+    pub fn key(&self, x: &[f64], k: &[f64], id: u64) -> u128 {
+        let n = self.n;
+        let mut cells = [0u64; 8];
+        let mut cells_vec;
+        let cells: &mut [u64] = if n <= 8 {
+            &mut cells[..n]
+        } else {
+            cells_vec = vec![0u64; n];
+            &mut cells_vec
+        };
+        let (xm, km) = match self.kind {
+            CellKind::Full => (0.0, 0.0),
+            CellKind::Relative => (
+                x.iter().sum::<f64>() / n as f64,
+                k.iter().sum::<f64>() / n as f64,
+            ),
+        };
+        for i in 0..n {
+            let ix =
+                (((x[i] - xm - self.x0) / self.cell_x).floor().max(0.0) as u64).min(self.nx - 1);
+            let ik =
+                (((k[i] - km - self.k0) / self.cell_k).floor().max(0.0) as u64).min(self.nk - 1);
+            cells[i] = (ix << self.bits_k) | ik;
+        }
+        if self.sort {
+            cells.sort_unstable();
+        }
+        let mut key: u128 = rng::group_of(id) as u128;
+        for &c in cells.iter() {
+            key = (key << self.bits_one) | c as u128;
+        }
+        key
+    }
+}

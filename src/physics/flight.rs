@@ -1,0 +1,346 @@
+//! Event-by-event flight of every particle between two synchronisation times (docs/method.md §2).
+//!
+//! Between events a particle follows the exact classical flight under the drift forces
+//! (dx_i/dt = ħk_i/m, dk_i/dt = −U_f'(x_i)/ħ). Generation events come at rate
+//! Γ(z) = Σ_i γ₁(x_i) + Σ_{i<j} γ₂(x_i − x_j), sampled exactly by thinning: candidates at
+//! rate Γ_max (a bound from the tables), each accepted with probability Γ(z)/Γ_max. At an
+//! event the parent continues; a particle of sign s is added at k + q and one of sign −s at
+//! k − q, where q = MΔk on one particle (one-body term) or (+MΔk, −MΔk) on a pair. Children
+//! start at their birth time and fly to the end of the interval with their own stream.
+//! Everything a particle does depends only on its own state, identity and the interval.
+
+use crate::config::job::Boundary;
+use crate::physics::numerics::Setup;
+use crate::physics::particles::Store;
+use crate::physics::rng::{self, tag};
+use rand::Rng;
+use rayon::prelude::*;
+
+/// Signed counts of particles that left during an interval, per error group.
+#[derive(Clone, Debug, Default, PartialEq)]
+pub struct Tally {
+    pub absorbed_left: Vec<i64>,
+    pub absorbed_right: Vec<i64>,
+    /// Removed because |k| exceeded k_max.
+    pub lost_momentum: Vec<i64>,
+    /// Accepted generation events and thinning candidates.
+    pub events: u64,
+    pub candidates: u64,
+}
+
+impl Tally {
+    pub fn new(groups: usize) -> Self {
+        Tally {
+            absorbed_left: vec![0; groups],
+            absorbed_right: vec![0; groups],
+            lost_momentum: vec![0; groups],
+            events: 0,
+            candidates: 0,
+        }
+    }
+    pub fn add(&mut self, o: &Tally) {
+        for (a, b) in self.absorbed_left.iter_mut().zip(&o.absorbed_left) {
+            *a += b;
+        }
+        for (a, b) in self.absorbed_right.iter_mut().zip(&o.absorbed_right) {
+            *a += b;
+        }
+        for (a, b) in self.lost_momentum.iter_mut().zip(&o.lost_momentum) {
+            *a += b;
+        }
+        self.events += o.events;
+        self.candidates += o.candidates;
+    }
+}
+
+pub use crate::config::limits::MAX_N;
+
+/// A particle in flight: coordinates, identity, sign, and the time it has reached (fs from
+/// the start of the interval).
+#[derive(Clone, Copy)]
+struct Flying {
+    x: [f64; MAX_N],
+    k: [f64; MAX_N],
+    id: u64,
+    sign: i8,
+    tau: f64,
+}
+
+enum Fate {
+    Inside,
+    Left,
+    Right,
+}
+
+/// Apply the boundary to coordinate (x, k). Reflecting folds the straight flight back
+/// (exact for free flight); periodic wraps.
+#[inline]
+fn boundary(setup: &Setup, x: &mut f64, k: &mut f64) -> Fate {
+    let (lo, hi) = (setup.lo, setup.hi);
+    if *x >= lo && *x < hi {
+        return Fate::Inside;
+    }
+    let w = hi - lo;
+    match setup.boundary {
+        Boundary::Absorbing => {
+            if *x < lo {
+                Fate::Left
+            } else {
+                Fate::Right
+            }
+        }
+        Boundary::Periodic => {
+            *x = lo + (*x - lo).rem_euclid(w);
+            if *x >= hi {
+                *x = lo;
+            }
+            Fate::Inside
+        }
+        Boundary::Reflecting => {
+            let m = (*x - lo).rem_euclid(2.0 * w);
+            if m > w {
+                *x = lo + 2.0 * w - m;
+                *k = -*k;
+            } else {
+                *x = lo + m;
+            }
+            if *x >= hi {
+                *x = hi - 1e-12 * w;
+            }
+            Fate::Inside
+        }
+    }
+}
+
+/// Γ(z) and, when `pick` is given (a uniform in [0, Γ)), the chosen term: one-body term of
+/// particle i → (i, None); pair (i, j) → (i, Some(j)).
+#[inline]
+fn rates(
+    setup: &Setup,
+    x: &[f64],
+    pick: Option<f64>,
+) -> (f64, Option<(usize, Option<usize>, usize)>) {
+    let n = x.len();
+    let mut total = 0.0;
+    if let Some(t) = &setup.table1 {
+        for (i, &xi) in x.iter().enumerate() {
+            if let Some(c) = t.cell(xi) {
+                total += t.gamma[c];
+                if pick.is_some_and(|u| u < total) {
+                    return (total, Some((i, None, c)));
+                }
+            }
+        }
+    }
+    if let Some(t) = &setup.table2 {
+        for i in 0..n {
+            for j in i + 1..n {
+                if let Some(c) = t.cell(setup.separation(x[i], x[j])) {
+                    total += t.gamma[c];
+                    if pick.is_some_and(|u| u < total) {
+                        return (total, Some((i, Some(j), c)));
+                    }
+                }
+            }
+        }
+    }
+    (total, None)
+}
+
+/// Fly one particle in place (and, through `stack`, its descendants) to the end of
+/// interval `interval`. Returns whether the start particle survives (its record then holds
+/// its new state); surviving descendants are pushed into `children`. `FREE`: no drift force
+/// (a separate instance, so that the free flight computes nothing of the force).
+fn fly<const FREE: bool>(
+    setup: &Setup,
+    interval: u64,
+    start: &mut Flying,
+    children: &mut Store,
+    tally: &mut Tally,
+    stack: &mut Vec<Flying>,
+) -> bool {
+    let n = setup.n;
+    let alive = flight::<FREE>(setup, interval, start, tally, stack);
+    while let Some(mut p) = stack.pop() {
+        if flight::<FREE>(setup, interval, &mut p, tally, stack) {
+            children.push(&p.x[..n], &p.k[..n], p.id, p.sign);
+        }
+    }
+    alive
+}
+
+/// Fly particle `p` in place to the end of the interval (or until it leaves), pushing its
+/// children onto `stack`. Returns whether it is still there at the end of the interval.
+#[inline]
+fn flight<const FREE: bool>(
+    setup: &Setup,
+    interval: u64,
+    p: &mut Flying,
+    tally: &mut Tally,
+    stack: &mut Vec<Flying>,
+) -> bool {
+    let n = setup.n;
+    let dt = setup.dt;
+    let gmax = setup.gamma_max;
+    let force = setup.one_body.force;
+    let group = rng::group_of(p.id) as usize;
+    // Without kernel events no random number is drawn: seed the stream only when needed.
+    let mut rs = (gmax > 0.0).then(|| rng::stream(&[setup.seed, tag::FLIGHT, p.id, interval]));
+    let mut births = 0u64;
+    loop {
+        let next = if let Some(rs) = rs.as_mut() {
+            let u: f64 = rs.random();
+            (p.tau - (1.0 - u).ln() / gmax).min(dt)
+        } else {
+            dt
+        };
+        let h = next - p.tau;
+        for i in 0..n {
+            let (xi, ki) = if FREE {
+                (
+                    p.x[i] + crate::physics::units::velocity(p.k[i], setup.mass) * h,
+                    p.k[i],
+                )
+            } else {
+                force.fly(p.x[i], p.k[i], h, setup.mass)
+            };
+            p.x[i] = xi;
+            p.k[i] = ki;
+        }
+        p.tau = next;
+        for i in 0..n {
+            match boundary(setup, &mut p.x[i], &mut p.k[i]) {
+                Fate::Inside => {}
+                Fate::Left => {
+                    tally.absorbed_left[group] += p.sign as i64;
+                    return false;
+                }
+                Fate::Right => {
+                    tally.absorbed_right[group] += p.sign as i64;
+                    return false;
+                }
+            }
+        }
+        if !FREE && p.k[..n].iter().any(|k| k.abs() > setup.k_max) {
+            tally.lost_momentum[group] += p.sign as i64;
+            return false;
+        }
+        if next >= dt {
+            return true;
+        }
+        // Only candidate times (gmax > 0) end a flight before dt.
+        let rs = rs.as_mut().expect("a candidate time has a stream");
+        tally.candidates += 1;
+        let u: f64 = rs.random::<f64>() * gmax;
+        let (_, chosen) = rates(setup, &p.x[..n], Some(u));
+        let Some((i, j, cell)) = chosen else { continue };
+        tally.events += 1;
+        let table = if j.is_none() {
+            setup.table1.as_ref()
+        } else {
+            setup.table2.as_ref()
+        };
+        let m = table.expect("a chosen term has a table").sample(cell, rs);
+        let q = m as f64 * setup.dk;
+        for (child_sign, dir) in [(p.sign, 1.0), (-p.sign, -1.0)] {
+            let mut k = p.k;
+            k[i] += dir * q;
+            if let Some(j) = j {
+                k[j] -= dir * q;
+            }
+            let id = rng::make_id(
+                group as u32,
+                rng::hash(&[setup.seed, tag::CHILD_ID, p.id, interval, births]),
+            );
+            births += 1;
+            if k[..n].iter().any(|v| v.abs() > setup.k_max) {
+                tally.lost_momentum[group] += child_sign as i64;
+                continue;
+            }
+            stack.push(Flying {
+                x: p.x,
+                k,
+                id,
+                sign: child_sign,
+                tau: p.tau,
+            });
+        }
+    }
+}
+
+/// Advance every particle of `store` through synchronisation interval `interval`
+/// (from t = interval·dt to (interval + 1)·dt), in place: survivors keep their slot (the
+/// store is compacted only when some left), children are appended. Returns the tallies.
+pub fn advance_in_place(setup: &Setup, store: &mut Store, interval: u64) -> Tally {
+    let n = setup.n;
+    let groups = setup.groups as usize;
+    const CHUNK: usize = 2048;
+    let free = setup.one_body.force.is_zero();
+    let parts: Vec<(Store, Vec<u32>, Tally)> = store
+        .x
+        .par_chunks_mut(CHUNK * n)
+        .zip(store.k.par_chunks_mut(CHUNK * n))
+        .zip(store.id.par_chunks(CHUNK))
+        .zip(store.sign.par_chunks(CHUNK))
+        .enumerate()
+        .map(|(c, (((xs, ks), ids), signs))| {
+            let mut children = Store::new(n);
+            let mut gone = Vec::new();
+            let mut tally = Tally::new(groups);
+            let mut stack = Vec::new();
+            // One start record, overwritten per particle (entries beyond n stay 0).
+            let mut start = Flying {
+                x: [0.0; MAX_N],
+                k: [0.0; MAX_N],
+                id: 0,
+                sign: 0,
+                tau: 0.0,
+            };
+            for p in 0..ids.len() {
+                start.x[..n].copy_from_slice(&xs[p * n..(p + 1) * n]);
+                start.k[..n].copy_from_slice(&ks[p * n..(p + 1) * n]);
+                start.id = ids[p];
+                start.sign = signs[p];
+                start.tau = 0.0;
+                let (s, o, t, st) = (&mut start, &mut children, &mut tally, &mut stack);
+                let alive = if free {
+                    fly::<true>(setup, interval, s, o, t, st)
+                } else {
+                    fly::<false>(setup, interval, s, o, t, st)
+                };
+                if alive {
+                    xs[p * n..(p + 1) * n].copy_from_slice(&start.x[..n]);
+                    ks[p * n..(p + 1) * n].copy_from_slice(&start.k[..n]);
+                } else {
+                    gone.push((c * CHUNK + p) as u32);
+                }
+            }
+            (children, gone, tally)
+        })
+        .collect();
+    let mut tally = Tally::new(groups);
+    let any_gone = parts.iter().any(|(_, g, _)| !g.is_empty());
+    if any_gone {
+        let mut keep = vec![true; store.len()];
+        for (_, g, _) in &parts {
+            for &p in g {
+                keep[p as usize] = false;
+            }
+        }
+        store.retain(&keep);
+    }
+    let extra: usize = parts.iter().map(|(c, _, _)| c.len()).sum();
+    store.reserve(extra);
+    for (mut c, _, t) in parts {
+        store.append(&mut c);
+        tally.add(&t);
+    }
+    tally
+}
+
+/// [`advance_in_place`] on a copy: the survivors and the tallies.
+pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
+    let mut out = store.clone();
+    let tally = advance_in_place(setup, &mut out, interval);
+    (out, tally)
+}

@@ -1,0 +1,17 @@
+//! Layer 2 — the physics the equations describe (docs/method.md): orbitals and the initial
+//! N-body Wigner function, potentials and the windowed kernel, the signed particles and
+//! their random streams, flight between synchronisation times, annihilation cells, the
+//! estimators, and the numerics derived from a job. No MPI, no files, no printing.
+
+pub mod cells;
+pub mod estimators;
+pub mod flight;
+pub mod grid;
+pub mod initial;
+pub mod kernel;
+pub mod numerics;
+pub mod orbitals;
+pub mod particles;
+pub mod potential;
+pub mod rng;
+pub mod units;

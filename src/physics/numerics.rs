@@ -1,0 +1,219 @@
+//! Validated numerics: everything the run derives from the job before the first particle
+//! exists (meshes, Δk, the transfer cap, kernel tables, Γ_max, cells, memory estimates).
+
+use crate::config::job::{Boundary, CellKind, Job, LoadedJob, Statistics};
+use crate::physics::grid::{self, Bins};
+use crate::physics::initial::NBodyWigner;
+use crate::physics::kernel::KernelTable;
+use crate::physics::orbitals::Gaussian;
+use crate::physics::particles::Store;
+use crate::physics::potential::{OneBody, PairPotential};
+use crate::physics::units;
+use anyhow::{Result, anyhow};
+
+pub struct Setup {
+    pub job: Job,
+    /// Effective job text (stored in every output file).
+    pub text: String,
+    pub n: usize,
+    pub stats: Statistics,
+    /// Mass, eV·fs²/nm².
+    pub mass: f64,
+    pub orbitals: Vec<Gaussian>,
+    pub lo: f64,
+    pub hi: f64,
+    pub boundary: Boundary,
+    pub k_max: f64,
+    /// Space mesh cell, nm.
+    pub mesh_dx: f64,
+    pub one_body: OneBody,
+    pub pair: Option<PairPotential>,
+    /// Coherence length and window roll-off, nm.
+    pub lc: f64,
+    pub rolloff: f64,
+    /// Transfer quantum Δk = π/L_c, 1/nm, and cap K = ⌊k_max/Δk⌋.
+    pub dk: f64,
+    pub cap: usize,
+    /// Kernel table of the summed one-body potential on the space mesh.
+    pub table1: Option<KernelTable>,
+    /// Kernel table of the pair potential on the relative-coordinate mesh [−L, L].
+    pub table2: Option<KernelTable>,
+    /// Bound on the total generation rate Γ(z) of one particle: N·max γ₁ + C(N,2)·max γ₂.
+    pub gamma_max: f64,
+    /// Synchronisation step, fs.
+    pub dt: f64,
+    pub steps: u64,
+    pub output_steps: Vec<u64>,
+    pub x_bins: Bins,
+    pub k_bins: Bins,
+    /// Annihilation cell sizes, nm and 1/nm.
+    pub cell_x: f64,
+    pub cell_k: f64,
+    pub cells: CellKind,
+    pub merge_exchange: bool,
+    pub groups: u32,
+    pub seed: u64,
+    pub target: u64,
+    pub trigger: f64,
+    /// Memory cap per rank for particles, bytes.
+    pub memory_limit: f64,
+}
+
+/// Physical memory of this machine in bytes (from /proc/meminfo; 8 GiB if unknown).
+pub fn machine_memory() -> f64 {
+    std::fs::read_to_string("/proc/meminfo")
+        .ok()
+        .and_then(|t| {
+            t.lines()
+                .find(|l| l.starts_with("MemTotal:"))
+                .and_then(|l| l.split_whitespace().nth(1))
+                .and_then(|v| v.parse::<f64>().ok())
+        })
+        .map(|kib| kib * 1024.0)
+        .unwrap_or(8.0 * (1u64 << 30) as f64)
+}
+
+impl Setup {
+    pub fn new(loaded: &LoadedJob) -> Result<Self> {
+        let job = loaded.job.clone();
+        let n = job.particles.count;
+        let mass = units::mass_from_electron_masses(job.particles.mass);
+        let (lo, hi) = (job.domain.x_min, job.domain.x_max);
+        let width = hi - lo;
+        let mesh_dx = width / job.domain.cells as f64;
+        let one_body = OneBody::from_job(&job.potentials, mesh_dx, mass, &loaded.base_dir)
+            .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
+        let pair = PairPotential::from_job(&job.pair);
+        let orbitals: Vec<Gaussian> = job.orbitals.iter().map(Gaussian::from).collect();
+        // Fail early, naming the file, when the (anti)symmetrised state does not exist.
+        NBodyWigner::new(&orbitals, job.particles.statistics)
+            .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
+        let lc = job.numerics.coherence_length;
+        let rolloff = job.numerics.rolloff.unwrap_or(lc / 8.0);
+        let dk = std::f64::consts::PI / lc;
+        let cap = (job.domain.k_max / dk).floor() as usize;
+        let table1 = one_body.has_kernel().then(|| {
+            let ob = one_body.clone();
+            let u = move |x: f64| ob.kernel_part(x);
+            KernelTable::build(&u, lo, mesh_dx, job.domain.cells, lc, rolloff, cap)
+        });
+        let table2 = (n >= 2).then_some(()).and(pair).map(|p| {
+            // Periodic: minimal-image separations lie in [−L/2, L/2]; otherwise [−L, L].
+            let (r_lo, points) = if job.domain.boundary == Boundary::Periodic {
+                (-0.5 * width, job.domain.cells)
+            } else {
+                (-width, 2 * job.domain.cells)
+            };
+            let u = move |r: f64| p.value(r);
+            KernelTable::build(&u, r_lo, mesh_dx, points, lc, rolloff, cap)
+        });
+        let pairs = (n * n.saturating_sub(1) / 2) as f64;
+        let gamma_max = n as f64 * table1.as_ref().map_or(0.0, |t| t.gamma_max)
+            + pairs * table2.as_ref().map_or(0.0, |t| t.gamma_max);
+        let cell_x = job.annihilation.cell_x.unwrap_or(mesh_dx);
+        let cell_k = job.annihilation.cell_k.unwrap_or(dk / 2.0);
+        let memory_limit = job
+            .numerics
+            .memory_limit_mib
+            .map(|m| m * (1u64 << 20) as f64)
+            .unwrap_or(0.5 * machine_memory());
+        Ok(Setup {
+            n,
+            stats: job.particles.statistics,
+            mass,
+            orbitals,
+            lo,
+            hi,
+            boundary: job.domain.boundary,
+            k_max: job.domain.k_max,
+            mesh_dx,
+            one_body,
+            pair,
+            lc,
+            rolloff,
+            dk,
+            cap,
+            table1,
+            table2,
+            gamma_max,
+            dt: job.numerics.sync_step,
+            steps: grid::total_steps(&job),
+            output_steps: grid::output_steps(&job),
+            x_bins: grid::x_bins(&job),
+            k_bins: grid::k_bins(&job),
+            cell_x,
+            cell_k,
+            cells: job.annihilation.cells,
+            merge_exchange: job.annihilation.merge_exchange && job.particles.statistics.identical(),
+            groups: job.numerics.groups,
+            seed: job.numerics.seed,
+            target: job.numerics.particles,
+            trigger: job.annihilation.trigger,
+            memory_limit,
+            text: loaded.text.clone(),
+            job,
+        })
+    }
+
+    /// The initial N-body Wigner function (fails when the Slater determinant vanishes).
+    pub fn initial_state(&self) -> Result<NBodyWigner> {
+        NBodyWigner::new(&self.orbitals, self.stats)
+    }
+
+    /// Bytes per particle in the store.
+    pub fn bytes_per_particle(&self) -> f64 {
+        Store::bytes_per_particle(self.n) as f64
+    }
+
+    /// Estimated peak bytes per rank: the store at the annihilation trigger, with room for
+    /// the children of one step and the growth slack of the vectors (factor 2 in all).
+    pub fn memory_per_rank(&self, ranks: usize) -> f64 {
+        let peak = self.trigger * self.target as f64 * (2.0 * self.gamma_max * self.dt).exp();
+        2.0 * peak / ranks as f64 * self.bytes_per_particle()
+    }
+
+    /// Size of one checkpoint at the annihilation trigger, bytes.
+    pub fn checkpoint_bytes(&self) -> f64 {
+        self.trigger * self.target as f64 * self.bytes_per_particle()
+    }
+
+    /// One-body potential energy (kernel part and forces) of coordinate x, eV.
+    #[inline]
+    pub fn u1(&self, x: f64) -> f64 {
+        self.one_body.total(x)
+    }
+
+    /// dU/dx of the whole one-body potential (kernel part and forces), eV/nm, by a
+    /// central difference over 1e-4 nm.
+    #[inline]
+    pub fn force_at(&self, x: f64) -> f64 {
+        let h = 1e-4;
+        (self.u1(x + h) - self.u1(x - h)) / (2.0 * h)
+    }
+
+    /// Relative coordinate of a pair, minimal image when periodic.
+    #[inline]
+    pub fn separation(&self, xi: f64, xj: f64) -> f64 {
+        let r = xi - xj;
+        if self.boundary == Boundary::Periodic {
+            let w = self.hi - self.lo;
+            r - w * (r / w).round()
+        } else {
+            r
+        }
+    }
+
+    /// H(z) = Σ ħ²k²/2m + Σ U(x_i) + Σ_{i<j} U₂(x_i − x_j), eV.
+    pub fn energy(&self, x: &[f64], k: &[f64]) -> f64 {
+        let mut e = 0.0;
+        for i in 0..self.n {
+            e += units::kinetic_energy(k[i], self.mass) + self.u1(x[i]);
+            if let Some(p) = &self.pair {
+                for j in i + 1..self.n {
+                    e += p.value(self.separation(x[i], x[j]));
+                }
+            }
+        }
+        e
+    }
+}

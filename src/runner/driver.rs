@@ -1,0 +1,373 @@
+//! The run: initial particles, then (advance → annihilate → observe → write)* to the end.
+
+use crate::config::job::LoadedJob;
+use crate::engine::annihilate::{self, CellMesh};
+use crate::engine::comm::{Comm, agree};
+use crate::engine::observe;
+use crate::engine::start::initial_state;
+use crate::engine::state::State;
+use crate::engine::stop::stop_requested;
+use crate::engine::timers::{Phase, Timers};
+use crate::io::checkpoint;
+use crate::io::names;
+use crate::io::results::ResultFile;
+use crate::physics::estimators::Counts;
+use crate::physics::flight;
+use crate::physics::numerics::Setup;
+use crate::runner::outdir::prepare_out;
+use crate::runner::progress::{Progress, Sink, StopReason};
+use crate::runner::records::{phase_table, record_run};
+use anyhow::{Result, bail};
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+/// What a run needs besides the job.
+pub struct RunOptions {
+    pub out: PathBuf,
+    pub force: bool,
+    /// Stop with a checkpoint at the first synchronisation time ≥ this (fs).
+    pub until: Option<f64>,
+    /// Stop with a checkpoint before this much wall time has passed.
+    pub walltime: Option<std::time::Duration>,
+}
+
+/// How a run or resume ended.
+#[derive(Debug, PartialEq, Eq, Clone, Copy)]
+pub enum Ending {
+    Finished,
+    /// Stopped early with a checkpoint (--until, --walltime or a signal).
+    Checkpointed,
+}
+
+/// Run the job from t = 0, writing `observables.h5` from rank 0.
+pub fn run(
+    loaded: &LoadedJob,
+    setup: &Setup,
+    opts: &RunOptions,
+    comm: &dyn Comm,
+    progress: Sink,
+) -> Result<Ending> {
+    let started = Instant::now();
+    let root = comm.is_root();
+    let prepared = if root {
+        prepare_out(&opts.out, opts.force)
+    } else {
+        Ok(())
+    };
+    agree(comm, prepared)?;
+    if root {
+        // Older checkpoints of a forced rerun must not be resumed by mistake.
+        for step in checkpoint::list(&opts.out) {
+            let _ = std::fs::remove_file(checkpoint::particle_path(&opts.out, step));
+            let _ = std::fs::remove_file(checkpoint::results_path(&opts.out, step));
+        }
+        let _ = std::fs::write(opts.out.join(names::JOB_COPY_FILE), &loaded.text);
+    }
+    let mut timers = Timers::default();
+    let t0 = Instant::now();
+    let (st, init) = initial_state(setup, comm)?;
+    timers.add(Phase::Initial, t0);
+    if root {
+        progress(Progress::Started {
+            particles: init.particles,
+            ranks: comm.size(),
+            threads: rayon::current_num_threads(),
+            abs_over_net: init.abs_over_net,
+            dropped: init.dropped,
+        });
+    }
+    let out = ResultFile::new(
+        names::OBSERVABLES_TYPE,
+        &setup.text,
+        setup.x_bins.centres(),
+        setup.k_bins.centres(),
+    );
+    drive(
+        loaded, setup, opts, comm, st, out, started, timers, true, progress,
+    )
+}
+
+/// Continue the run in `dir` from its newest valid checkpoint, on any number of ranks.
+pub fn resume(
+    dir: &Path,
+    until: Option<f64>,
+    walltime: Option<std::time::Duration>,
+    comm: &dyn Comm,
+    progress: Sink,
+) -> Result<Ending> {
+    let started = Instant::now();
+    let mut timers = Timers::default();
+    let t0 = Instant::now();
+    let restored = checkpoint::newest_valid(dir, comm)?;
+    let setup = Setup::new(&restored.job)?;
+    if comm.is_root() {
+        for w in &restored.skipped {
+            progress(Progress::Warning(w.clone()));
+        }
+        progress(Progress::Resumed {
+            dir: dir.to_path_buf(),
+            time_fs: restored.time,
+            step: restored.state.step,
+            ranks: comm.size(),
+        });
+    }
+    // The results file goes back to exactly the state of the checkpoint.
+    let r = if comm.is_root() {
+        restored
+            .results
+            .write_atomic(&dir.join(names::OBSERVABLES_FILE))
+    } else {
+        Ok(())
+    };
+    agree(comm, r)?;
+    timers.add(Phase::Checkpoint, t0);
+    let opts = RunOptions {
+        out: dir.to_path_buf(),
+        force: true,
+        until,
+        walltime,
+    };
+    drive(
+        &restored.job,
+        &setup,
+        &opts,
+        comm,
+        restored.state,
+        restored.results,
+        started,
+        timers,
+        false,
+        progress,
+    )
+}
+
+#[allow(clippy::too_many_arguments)]
+fn drive(
+    loaded: &LoadedJob,
+    setup: &Setup,
+    opts: &RunOptions,
+    comm: &dyn Comm,
+    mut st: State,
+    mut out: ResultFile,
+    started: Instant,
+    mut timers: Timers,
+    fresh: bool,
+    progress: Sink,
+) -> Result<Ending> {
+    let root = comm.is_root();
+    let mesh = CellMesh::new(setup)?;
+    let obs_path = opts.out.join(names::OBSERVABLES_FILE);
+    let observe = |st: &State, out: &mut ResultFile, timers: &mut Timers| {
+        let t0 = Instant::now();
+        let c = observe::reduce(Counts::collect(setup, &st.store), comm);
+        if root {
+            let frame = c.frame(setup, st.step as f64 * setup.dt, &st.s0, &st.gone);
+            out.push_frame(&frame);
+        }
+        timers.add(Phase::Observe, t0);
+    };
+    if fresh {
+        observe(&st, &mut out, &mut timers);
+        let t0 = Instant::now();
+        let written = if root {
+            out.write_atomic(&obs_path)
+        } else {
+            Ok(())
+        };
+        agree(comm, written)?;
+        timers.add(Phase::Output, t0);
+    }
+    let threshold = (setup.trigger * st.initial_count as f64) as u64;
+    let stop_step = match opts.until {
+        Some(t) => ((t / setup.dt) - 1e-9).ceil().max(0.0) as u64,
+        None => setup.steps,
+    }
+    .min(setup.steps);
+    let ck = &setup.job.checkpoint;
+    let every_steps = ck.every.map(|t| ((t / setup.dt).round() as u64).max(1));
+    let mut last_checkpoint = Instant::now();
+    let mut longest_checkpoint: f64 = (setup.checkpoint_bytes() / 50e6 / comm.size() as f64) + 2.0;
+    let mut longest_step: f64 = 0.0;
+    let deadline = opts.walltime.map(|w| started + w);
+    let mut last_print = Instant::now();
+    let mut events = 0u64;
+    let mut bytes_sent: Vec<f64> = Vec::new();
+    let mut cells: Vec<f64> = Vec::new();
+    let g = setup.groups as usize;
+    while st.step < stop_step {
+        let step_started = Instant::now();
+        let t0 = Instant::now();
+        let tally = flight::advance_in_place(setup, &mut st.store, st.step);
+        st.step += 1;
+        timers.add(Phase::Advance, t0);
+        let t0 = Instant::now();
+        let mut t = [
+            tally.absorbed_left.clone(),
+            tally.absorbed_right.clone(),
+            tally.lost_momentum.clone(),
+            vec![tally.events as i64, st.store.len() as i64],
+        ]
+        .concat();
+        comm.sum_i64(&mut t);
+        for i in 0..g {
+            st.gone.left[i] += t[i];
+            st.gone.right[i] += t[g + i];
+            st.gone.momentum[i] += t[2 * g + i];
+        }
+        events += t[3 * g] as u64;
+        let count = t[3 * g + 1] as u64;
+        timers.add(Phase::Bookkeeping, t0);
+        if count > threshold {
+            let t0 = Instant::now();
+            let rep = annihilate::annihilate(setup, &mesh, &mut st.store, st.step, comm);
+            timers.add_secs(Phase::Binning, rep.binning_s);
+            timers.add_secs(Phase::Reduction, rep.reduction_s);
+            // The rest of the call (the global before/after counts, which also absorb the
+            // ranks' imbalance in selection, and freeing the cell buffers) is bookkeeping.
+            timers.add_secs(
+                Phase::Bookkeeping,
+                (t0.elapsed().as_secs_f64() - rep.binning_s - rep.reduction_s - rep.selection_s)
+                    .max(0.0),
+            );
+            let t0 = Instant::now();
+            let moved = annihilate::rebalance(&mut st.store, comm);
+            timers.add_secs(
+                Phase::Regeneration,
+                rep.selection_s + t0.elapsed().as_secs_f64(),
+            );
+            st.annihilations += 1;
+            bytes_sent.push(8.0 * (rep.words_sent + moved) as f64);
+            cells.push(rep.local_cells as f64);
+            if root {
+                let rec = &mut out.records;
+                for (d, v) in [
+                    (names::ANNIHILATION_TIME, st.step as f64 * setup.dt),
+                    (names::ANNIHILATION_BEFORE, rep.before as f64),
+                    (
+                        names::ANNIHILATION_CANCELLED,
+                        (rep.before - rep.after) as f64,
+                    ),
+                ] {
+                    rec.entry(d.name.to_string())
+                        .or_insert_with(|| (d.units.to_string(), Vec::new()))
+                        .1
+                        .push(v);
+                }
+            }
+        }
+        let t0 = Instant::now();
+        let local_bytes = st.store.len() as f64 * setup.bytes_per_particle();
+        if comm.any(local_bytes * 2.0 > setup.memory_limit) {
+            let mut n = [st.store.len() as i64];
+            comm.sum_i64(&mut n);
+            bail!(
+                "the particle count ({} on all ranks, {} here) would exceed the memory cap of {:.0} MiB per rank \
+                 (numerics.memory_limit_mib; {:.0} particles fit with 2× headroom) at t = {} fs: the sign problem \
+                 outgrew annihilation; use finer annihilation cells, a lower annihilation.trigger, more ranks, or \
+                 fewer particles",
+                n[0],
+                st.store.len(),
+                setup.memory_limit / (1u64 << 20) as f64,
+                setup.memory_limit / setup.bytes_per_particle() / 2.0,
+                st.step as f64 * setup.dt
+            );
+        }
+        timers.add(Phase::Bookkeeping, t0);
+        let is_output = setup.output_steps.binary_search(&st.step).is_ok();
+        if is_output {
+            observe(&st, &mut out, &mut timers);
+            let t0 = Instant::now();
+            record_run(&mut out, &timers, started, &bytes_sent, &cells, comm);
+            let written = if root {
+                out.write_atomic(&obs_path)
+            } else {
+                Ok(())
+            };
+            agree(comm, written)?;
+            timers.add(Phase::Output, t0);
+        }
+        longest_step = longest_step.max(step_started.elapsed().as_secs_f64());
+        // Stop requests act at synchronisation times only and never change the trajectory.
+        let t0 = Instant::now();
+        let unfinished = st.step < setup.steps;
+        let signal = comm.any(stop_requested());
+        let out_of_time = deadline.is_some_and(|d| {
+            let margin = std::time::Duration::from_secs_f64(
+                3.0 * longest_checkpoint + 2.0 * longest_step + 5.0,
+            );
+            comm.any(root && Instant::now() + margin >= d)
+        });
+        let until = st.step == stop_step && stop_step < setup.steps;
+        let cadence = every_steps.is_some_and(|e| st.step.is_multiple_of(e))
+            || ck.every_minutes.is_some_and(|m| {
+                comm.any(root && last_checkpoint.elapsed().as_secs_f64() >= 60.0 * m)
+            });
+        timers.add(Phase::Bookkeeping, t0);
+        if unfinished && (signal || out_of_time || until || cadence) {
+            let t0 = Instant::now();
+            checkpoint::write(
+                &opts.out,
+                &st,
+                &out,
+                loaded,
+                st.step as f64 * setup.dt,
+                ck.keep,
+                comm,
+            )?;
+            longest_checkpoint = longest_checkpoint.max(t0.elapsed().as_secs_f64());
+            last_checkpoint = Instant::now();
+            timers.add(Phase::Checkpoint, t0);
+            if signal || out_of_time || until {
+                if root {
+                    let why = if signal {
+                        StopReason::Signal
+                    } else if out_of_time {
+                        StopReason::Walltime
+                    } else {
+                        StopReason::Until
+                    };
+                    progress(Progress::Stopped {
+                        time_fs: st.step as f64 * setup.dt,
+                        why,
+                        dir: opts.out.clone(),
+                    });
+                }
+                if let Some(rows) = phase_table(&timers, started, comm) {
+                    progress(Progress::Phases(rows));
+                }
+                return Ok(Ending::Checkpointed);
+            }
+        }
+        if root && (is_output || last_print.elapsed().as_secs_f64() >= 2.0) {
+            last_print = Instant::now();
+            let el = started.elapsed().as_secs_f64();
+            let frac = st.step as f64 / setup.steps as f64;
+            let norm = out
+                .series
+                .get(names::NORM.name)
+                .and_then(|s| s.data.last())
+                .copied()
+                .unwrap_or(f64::NAN);
+            progress(Progress::Step {
+                time_fs: st.step as f64 * setup.dt,
+                end_fs: setup.steps as f64 * setup.dt,
+                particles: count,
+                norm,
+                events_per_s: events as f64 / el.max(1e-9),
+                elapsed_s: el,
+                left_s: el / frac.max(1e-9) - el,
+            });
+        }
+    }
+    if root {
+        progress(Progress::Finished {
+            path: obs_path.clone(),
+            outputs: out.times().len(),
+            elapsed_s: started.elapsed().as_secs_f64(),
+        });
+    }
+    if let Some(rows) = phase_table(&timers, started, comm) {
+        progress(Progress::Phases(rows));
+    }
+    Ok(Ending::Finished)
+}

@@ -1,0 +1,5 @@
+//! Layer 6 — studies that launch runs: strong/weak/threads scaling and the accuracy study
+//! against the exact reference.
+
+pub mod accuracy;
+pub mod scaling;
