@@ -3,7 +3,7 @@
 //!
 //! MPI is initialised only by the commands that run the engine on every rank (`check`,
 //! `run`, `resume`). The serial tools (reference, compare, plot, inspect, scaling,
-//! accuracy) do not initialise MPI; under `mpirun` they act on the launcher's rank 0 only
+//! accuracy, validate) do not initialise MPI; under `mpirun` they act on the launcher's rank 0 only
 //! (see [`launcher_rank`]), so they neither race on their files nor print twice.
 
 mod accuracy;
@@ -14,6 +14,7 @@ mod plot;
 mod reference;
 mod run;
 mod scaling;
+mod validate;
 
 use clap::{Parser, Subcommand};
 use signfold::engine::comm::Comm;
@@ -120,6 +121,9 @@ pub enum Command {
     /// Measure the Monte Carlo against the exact reference over particle counts and
     /// coherence lengths for the demo jobs (see docs/accuracy.md).
     Accuracy(signfold::study::accuracy::Options),
+    /// Run the validation jobs (jobs/validation/) and compare each with the exact
+    /// reference; writes VALIDATION.md, a CSV and a figure; exit 1 when a check fails.
+    Validate(signfold::study::validate::Options),
 }
 
 /// Entry point of the binary.
@@ -287,6 +291,7 @@ fn serial(cmd: Command) -> anyhow::Result<ExitCode> {
         } => reference::command(&job, &out, &set, force, points, dt),
         Command::Scaling(opts) => scaling::command(&opts),
         Command::Accuracy(opts) => accuracy::command(&opts),
+        Command::Validate(opts) => validate::command(&opts),
         Command::Compare { a, b, tolerance } => compare::command(&a, &b, tolerance),
         Command::Check { .. } | Command::Run { .. } | Command::Resume { .. } => {
             unreachable!("engine commands are dispatched by `engine_command`")

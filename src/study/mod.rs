@@ -3,3 +3,4 @@
 
 pub mod accuracy;
 pub mod scaling;
+pub mod validate;

@@ -1,0 +1,544 @@
+//! `signfold validate`: every job of a validation directory run by the Monte Carlo with the
+//! engine's own numerics and fixed seeds, and compared with the exact reference, observable
+//! by observable and time by time, with the statistics of [`crate::analysis::stats`].
+//!
+//! Acceptance (fixed before any comparison): scalars |t| ≤ 3.5 (norm, absorbed per side,
+//! the transmitted norm for one particle, energy); binned data (density; pair density over
+//! x ≤ x′) |Z| ≤ 3.5 for the mean p-value score. Precision floors are reported beside:
+//! transmitted-norm s.e., s.e. of ∫n₂(x, x) dx, and the expected density noise as a
+//! relative L1 distance.
+
+use crate::analysis::stats::{self, BinnedTest, ScalarTest};
+use crate::config::job::{self, LoadedJob};
+use crate::engine::comm::Solo;
+use crate::io::names::{self, Dataset};
+use crate::io::results::ResultFile;
+use crate::physics::numerics::Setup;
+use crate::reference;
+use crate::runner::driver::{self, RunOptions};
+use crate::study::accuracy::{common_frames, expected_noise_l1};
+use crate::viz::chart::{Area, FONT_NAME, LABEL_PX, TICK_PX, TITLE_PX, ensure_font, render};
+use crate::viz::colormap;
+use anyhow::{Context, Result, bail};
+use plotters::prelude::*;
+use std::fmt::Write as _;
+use std::path::{Path, PathBuf};
+use std::time::Instant;
+
+/// Largest |t| or |Z| accepted.
+pub const ACCEPT: f64 = 3.5;
+
+/// The subset `--quick` runs: one job per code path (one-body kernel with absorbing walls,
+/// a force with a kernel term in a closed box, identical fermions with exchange, the pair
+/// interaction, a reflecting wall, a periodic box).
+pub const QUICK: [&str; 5] = [
+    "v01-barrier",
+    "v05-trap-bump",
+    "v09-fermions-trap-coulomb",
+    "v11-wall",
+    "v12-periodic",
+];
+
+/// Options of `signfold validate`.
+#[derive(clap::Args, Clone, Debug)]
+pub struct Options {
+    /// Only the quick subset (one job per code path, at a fifth of the particles).
+    #[arg(long)]
+    pub quick: bool,
+    /// Where VALIDATION.md, validation.csv and validation.png are written.
+    #[arg(long, default_value = "scaling-results")]
+    pub out: PathBuf,
+    /// Directory of the validation jobs.
+    #[arg(long, default_value = "jobs/validation")]
+    pub jobs: PathBuf,
+    /// Only the jobs whose file name contains this text.
+    #[arg(long)]
+    pub only: Option<String>,
+}
+
+/// One test of one observable at one output time.
+#[derive(Clone, Debug)]
+pub struct Check {
+    pub job: String,
+    pub time: f64,
+    pub observable: &'static str,
+    pub kind: Kind,
+}
+
+/// What was tested.
+#[derive(Clone, Debug)]
+pub enum Kind {
+    Scalar {
+        estimate: f64,
+        se: f64,
+        exact: f64,
+        test: ScalarTest,
+    },
+    Binned(BinnedTest),
+}
+
+impl Check {
+    /// The statistic compared with [`ACCEPT`]: t for scalars, Z for binned data.
+    pub fn statistic(&self) -> f64 {
+        match &self.kind {
+            Kind::Scalar { test, .. } => test.t,
+            Kind::Binned(b) => b.z,
+        }
+    }
+
+    pub fn passed(&self) -> bool {
+        self.statistic().abs() <= ACCEPT
+    }
+}
+
+/// Precision reached by one job (last output time).
+#[derive(Clone, Debug, Default)]
+pub struct Floors {
+    pub transmitted_se: Option<f64>,
+    pub diagonal_pair_se: Option<f64>,
+    pub density_noise_l1: f64,
+    pub peak_particles: f64,
+    pub wall_s: f64,
+}
+
+/// Compare a Monte Carlo result with the exact one at every common output time.
+///
+/// `resolution` is the norm one sample carries (1/S₀): a scalar
+/// with zero standard error (no group saw a sample) passes when it is within three samples'
+/// norm of the exact value — the chance of seeing no sample where about three are expected
+/// is e⁻³ ≈ 5 %, so smaller exact values are invisible to the sample, not wrong.
+pub fn compare(
+    job: &str,
+    n: usize,
+    groups: usize,
+    resolution: f64,
+    mc: &ResultFile,
+    exact: &ResultFile,
+) -> Vec<Check> {
+    let mut out = Vec::new();
+    let nx = mc.x.len();
+    let scalars: Vec<Dataset> = [
+        names::NORM,
+        names::ABSORBED_LEFT,
+        names::ABSORBED_RIGHT,
+        names::ENERGY,
+    ]
+    .into_iter()
+    .collect();
+    for (i, j, time) in common_frames(mc, exact) {
+        for d in &scalars {
+            let (Some(v), Some(e), Some(r)) = (
+                mc.series.get(d.name),
+                mc.series.get(&names::error_of(d.name)),
+                exact.series.get(d.name),
+            ) else {
+                continue;
+            };
+            let (estimate, se, ex) = (v.frame(i)[0], e.frame(i)[0], r.frame(j)[0]);
+            // Energies have no sample resolution of their own: scale by the exact value.
+            let tol = 3.0 * resolution * ex.abs().max(1.0);
+            out.push(Check {
+                job: job.into(),
+                time,
+                observable: d.name,
+                kind: Kind::Scalar {
+                    estimate,
+                    se,
+                    exact: ex,
+                    test: stats::scalar_test(estimate, se, ex, groups, tol),
+                },
+            });
+        }
+        if n == 1
+            && let (Some((t, se)), Some(tr)) = (transmitted_at(mc, i), transmitted_at(exact, j))
+        {
+            out.push(Check {
+                job: job.into(),
+                time,
+                observable: names::NORM_RIGHT.name,
+                kind: Kind::Scalar {
+                    estimate: t,
+                    se,
+                    exact: tr.0,
+                    test: stats::scalar_test(t, se, tr.0, groups, 3.0 * resolution),
+                },
+            });
+        }
+        let binned = |name: &'static str, upper: bool| -> Option<Check> {
+            let v = mc.series.get(name)?;
+            let e = mc.series.get(&names::error_of(name))?;
+            let r = exact.series.get(name)?;
+            let test = stats::binned_test(v.frame(i), e.frame(i), r.frame(j), groups, |b| {
+                !upper || b / nx <= b % nx
+            });
+            Some(Check {
+                job: job.into(),
+                time,
+                observable: name,
+                kind: Kind::Binned(test),
+            })
+        };
+        out.extend(binned(names::DENSITY.name, false));
+        out.extend(binned(names::PAIR_DENSITY.name, true));
+    }
+    out
+}
+
+/// Transmitted norm at frame `t`: `norm_right` with its error (Monte Carlo), or absorbed
+/// right plus the one-body norm at x > 0 (reference, which has no `norm_right`).
+fn transmitted_at(f: &ResultFile, t: usize) -> Option<(f64, f64)> {
+    if let (Some(v), Some(e)) = (
+        f.series.get(names::NORM_RIGHT.name),
+        f.series.get(&names::error_of(names::NORM_RIGHT.name)),
+    ) {
+        return Some((v.frame(t)[0], e.frame(t)[0]));
+    }
+    let d = f.series.get(names::DENSITY.name)?;
+    let dx = (f.x.last()? - f.x.first()?) / (f.x.len().max(2) - 1) as f64;
+    let inside: f64 =
+        f.x.iter()
+            .zip(d.frame(t))
+            .filter(|(x, _)| **x > 0.0)
+            .map(|(_, v)| v * dx)
+            .sum();
+    let right = f.series.get(names::ABSORBED_RIGHT.name)?.frame(t)[0];
+    Some((right + inside, 0.0))
+}
+
+/// Precision floors at the last common time.
+fn floors(n: usize, mc: &ResultFile, exact: &ResultFile) -> Floors {
+    let mut fl = Floors::default();
+    let Some(&(i, j, _)) = common_frames(mc, exact).last() else {
+        return fl;
+    };
+    if n == 1 {
+        fl.transmitted_se = transmitted_at(mc, i).map(|t| t.1);
+    }
+    let nx = mc.x.len();
+    let dx = (mc.x[nx - 1] - mc.x[0]) / (nx.max(2) - 1) as f64;
+    if let Some(e) = mc.series.get(&names::error_of(names::PAIR_DENSITY.name)) {
+        let f = e.frame(i);
+        let var: f64 = (0..nx).map(|b| f[b * nx + b].powi(2)).sum();
+        fl.diagonal_pair_se = Some(var.sqrt() * dx);
+    }
+    if let (Some(e), Some(r)) = (
+        mc.series.get(&names::error_of(names::DENSITY.name)),
+        exact.series.get(names::DENSITY.name),
+    ) {
+        fl.density_noise_l1 = expected_noise_l1(e.frame(i), r.frame(j));
+    }
+    fl.peak_particles = mc
+        .series
+        .get(names::PARTICLES.name)
+        .map_or(0.0, |s| s.data.iter().cloned().fold(0.0, f64::max));
+    fl
+}
+
+/// Job files of the validation directory, sorted by name.
+fn job_files(opts: &Options) -> Result<Vec<PathBuf>> {
+    let mut v: Vec<PathBuf> = std::fs::read_dir(&opts.jobs)
+        .with_context(|| format!("--jobs {}", opts.jobs.display()))?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|x| x == "toml"))
+        .filter(|p| {
+            let stem = p
+                .file_stem()
+                .unwrap_or_default()
+                .to_string_lossy()
+                .to_string();
+            (!opts.quick || QUICK.contains(&stem.as_str()))
+                && opts.only.as_ref().is_none_or(|o| stem.contains(o.as_str()))
+        })
+        .collect();
+    v.sort();
+    if v.is_empty() {
+        bail!(
+            "--jobs {}: no validation job (*.toml) selected",
+            opts.jobs.display()
+        );
+    }
+    Ok(v)
+}
+
+/// Outcome of one job.
+pub struct JobOutcome {
+    pub name: String,
+    pub n: usize,
+    pub particles: u64,
+    pub checks: Vec<Check>,
+    pub floors: Floors,
+}
+
+/// Run the suite; write VALIDATION.md (or VALIDATION-quick.md), a CSV and a figure into
+/// `opts.out`; return the paths and whether every check passed.
+pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathBuf>, bool)> {
+    std::fs::create_dir_all(&opts.out)
+        .with_context(|| format!("cannot create {}", opts.out.display()))?;
+    let runs = opts.out.join("validation-runs");
+    let mut outcomes = Vec::new();
+    for file in job_files(opts)? {
+        let name = file
+            .file_stem()
+            .unwrap_or_default()
+            .to_string_lossy()
+            .to_string();
+        let mut overrides = Vec::new();
+        let base = job::load(&file, &[])?;
+        if opts.quick {
+            let n = (base.job.numerics.particles / 5).max(20_000);
+            overrides.push(format!("numerics.particles={n}"));
+        }
+        let loaded = job::load(&file, &overrides)?;
+        let started = Instant::now();
+        let exact = reference::solve(&loaded).with_context(|| format!("{name}: reference"))?;
+        let ref_s = started.elapsed().as_secs_f64();
+        let started = Instant::now();
+        let mc = run_monte_carlo(&loaded, &runs.join(&name))?;
+        let wall = started.elapsed().as_secs_f64();
+        let n = loaded.job.particles.count;
+        let groups = loaded.job.numerics.groups as usize;
+        let resolution = sample_resolution(&mc);
+        let checks = compare(&name, n, groups, resolution, &mc, &exact);
+        let mut fl = floors(n, &mc, &exact);
+        fl.wall_s = wall;
+        let failed = checks.iter().filter(|c| !c.passed()).count();
+        say(format!(
+            "{name}: {} checks, {failed} outside |stat| ≤ {ACCEPT}; reference {ref_s:.0} s, Monte Carlo {wall:.0} s",
+            checks.len()
+        ));
+        outcomes.push(JobOutcome {
+            name,
+            n,
+            particles: loaded.job.numerics.particles,
+            checks,
+            floors: fl,
+        });
+    }
+    let suffix = if opts.quick { "-quick" } else { "" };
+    let md = opts.out.join(format!("VALIDATION{suffix}.md"));
+    let csv = opts.out.join(format!("validation{suffix}.csv"));
+    let png = opts.out.join(format!("validation{suffix}.png"));
+    std::fs::write(&md, markdown(&outcomes, opts.quick))
+        .with_context(|| format!("cannot write {}", md.display()))?;
+    std::fs::write(&csv, csv_text(&outcomes))
+        .with_context(|| format!("cannot write {}", csv.display()))?;
+    figure(&png, &outcomes)?;
+    let ok = outcomes.iter().all(|o| o.checks.iter().all(Check::passed));
+    Ok((vec![md, csv, png], ok))
+}
+
+/// Norm carried by one sample: 1/S₀, S₀ the net sign count at t = 0.
+fn sample_resolution(mc: &ResultFile) -> f64 {
+    let first = |d: Dataset| mc.series.get(d.name).map_or(f64::NAN, |s| s.data[0]);
+    let (pos, neg) = (
+        first(names::PARTICLES_POSITIVE),
+        first(names::PARTICLES_NEGATIVE),
+    );
+    1.0 / (pos - neg).abs().max(1.0)
+}
+
+/// The Monte Carlo of one job in-process on one rank, into `dir` (replaced).
+fn run_monte_carlo(loaded: &LoadedJob, dir: &Path) -> Result<ResultFile> {
+    let setup = Setup::new(loaded)?;
+    let opts = RunOptions {
+        out: dir.to_path_buf(),
+        force: true,
+        until: None,
+        walltime: None,
+    };
+    driver::run(loaded, &setup, &opts, &Solo, &mut |_| {})?;
+    ResultFile::read(&dir.join(names::OBSERVABLES_FILE))
+}
+
+fn csv_text(outcomes: &[JobOutcome]) -> String {
+    let mut s = String::from(
+        "job,time_fs,observable,kind,statistic,passed,estimate,standard_error,exact,bins,empty_bins,mean_t2,expected_t2\n",
+    );
+    for o in outcomes {
+        for c in &o.checks {
+            let _ = match &c.kind {
+                Kind::Scalar {
+                    estimate,
+                    se,
+                    exact,
+                    test,
+                } => writeln!(
+                    s,
+                    "{},{},{},scalar,{:.4},{},{estimate:.6e},{se:.3e},{exact:.6e},,,,",
+                    c.job,
+                    c.time,
+                    c.observable,
+                    test.t,
+                    c.passed()
+                ),
+                Kind::Binned(b) => writeln!(
+                    s,
+                    "{},{},{},binned,{:.4},{},,,,{},{},{:.4},{:.4}",
+                    c.job,
+                    c.time,
+                    c.observable,
+                    b.z,
+                    c.passed(),
+                    b.bins,
+                    b.empty_bins,
+                    b.mean_t2,
+                    b.expected_t2
+                ),
+            };
+        }
+    }
+    s
+}
+
+fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
+    let mut s = String::new();
+    let _ = writeln!(
+        s,
+        "# Validation against the exact reference{}\n",
+        if quick { " (quick subset)" } else { "" }
+    );
+    let _ = writeln!(
+        s,
+        "Made by `signfold validate{}`: each job of `jobs/validation/` run by the Monte Carlo \
+         with the numerics in its file and its fixed seed, compared with `signfold reference` \
+         at every output time. Scalars pass with |t| ≤ {ACCEPT} (t = difference / standard \
+         error); binned data pass with |Z| ≤ {ACCEPT}, Z being the normal score of the mean \
+         per-bin p-value under Student's t with B − 1 degrees of freedom (two-sided: Z > 0 \
+         means error bars too large; see `src/analysis/stats.rs` and docs/method.md §4).\n",
+        if quick { " --quick" } else { "" }
+    );
+    let _ = writeln!(
+        s,
+        "| job | N | particles | checks | failed | worst scalar t | worst binned Z | transmitted s.e. | ∫n₂(x,x) s.e. | density noise L1 | peak count | MC wall (s) |"
+    );
+    let _ = writeln!(s, "|---|---|---|---|---|---|---|---|---|---|---|---|");
+    for o in outcomes {
+        let worst = |scalar: bool| {
+            o.checks
+                .iter()
+                .filter(|c| matches!(c.kind, Kind::Scalar { .. }) == scalar)
+                .max_by(|a, b| a.statistic().abs().total_cmp(&b.statistic().abs()))
+                .map_or("–".to_string(), |c| {
+                    format!("{:+.2} ({} at {} fs)", c.statistic(), c.observable, c.time)
+                })
+        };
+        let opt = |v: Option<f64>| v.map_or("–".to_string(), |v| format!("{v:.4}"));
+        let _ = writeln!(
+            s,
+            "| {} | {} | {} | {} | {} | {} | {} | {} | {} | {:.3} | {:.3e} | {:.0} |",
+            o.name,
+            o.n,
+            o.particles,
+            o.checks.len(),
+            o.checks.iter().filter(|c| !c.passed()).count(),
+            worst(true),
+            worst(false),
+            opt(o.floors.transmitted_se),
+            opt(o.floors.diagonal_pair_se),
+            o.floors.density_noise_l1,
+            o.floors.peak_particles,
+            o.floors.wall_s
+        );
+    }
+    let _ = writeln!(s, "\nFailed checks:\n");
+    let mut any = false;
+    for o in outcomes {
+        for c in o.checks.iter().filter(|c| !c.passed()) {
+            any = true;
+            let _ = match &c.kind {
+                Kind::Scalar {
+                    estimate,
+                    se,
+                    exact,
+                    ..
+                } => writeln!(
+                    s,
+                    "- {} t = {} fs {}: {estimate:.5} ± {se:.5} vs exact {exact:.5} (t = {:+.2})",
+                    o.name,
+                    c.time,
+                    c.observable,
+                    c.statistic()
+                ),
+                Kind::Binned(b) => writeln!(
+                    s,
+                    "- {} t = {} fs {}: Z = {:+.2}, mean t² {:.2} (expected {:.2}) over {} bins",
+                    o.name, c.time, c.observable, b.z, b.mean_t2, b.expected_t2, b.bins
+                ),
+            };
+        }
+    }
+    if !any {
+        let _ = writeln!(s, "none.");
+    }
+    s
+}
+
+/// Every statistic per job (one column of points per job), with the acceptance band.
+fn figure(path: &Path, outcomes: &[JobOutcome]) -> Result<()> {
+    ensure_font()?;
+    let stats: Vec<(usize, f64, bool)> = outcomes
+        .iter()
+        .enumerate()
+        .flat_map(|(j, o)| {
+            o.checks.iter().map(move |c| {
+                (
+                    j,
+                    c.statistic().clamp(-10.0, 10.0),
+                    matches!(c.kind, Kind::Binned(_)),
+                )
+            })
+        })
+        .collect();
+    let n = outcomes.len();
+    render(path, (1100, 640), |root: &Area| {
+        let area = root.titled(
+            "Monte Carlo against the exact reference (|t|, |Z| ≤ 3.5 accepted)",
+            (FONT_NAME, TITLE_PX),
+        )?;
+        let mut chart = ChartBuilder::on(&area)
+            .margin(15)
+            .x_label_area_size(70)
+            .y_label_area_size(60)
+            .build_cartesian_2d(-0.5f64..(n as f64 - 0.5), -10.5f64..10.5f64)?;
+        let labels: Vec<String> = outcomes.iter().map(|o| o.name.clone()).collect();
+        chart
+            .configure_mesh()
+            .x_labels(n.max(1))
+            .x_label_formatter(&|v| {
+                let i = v.round();
+                if (v - i).abs() < 1e-6 && i >= 0.0 && (i as usize) < labels.len() {
+                    labels[i as usize].chars().take(12).collect()
+                } else {
+                    String::new()
+                }
+            })
+            .y_desc("t (scalars, ○) or Z (binned, ×), clamped to ±10")
+            .label_style((FONT_NAME, TICK_PX))
+            .axis_desc_style((FONT_NAME, LABEL_PX))
+            .draw()?;
+        let grey = RGBColor(150, 150, 150);
+        for y in [-ACCEPT, ACCEPT] {
+            chart.draw_series(LineSeries::new(
+                [(-0.5, y), (n as f64 - 0.5, y)],
+                grey.stroke_width(2),
+            ))?;
+        }
+        let (r, g, b) = colormap::line(0);
+        let scalar = RGBColor(r, g, b);
+        let (r, g, b) = colormap::line(1);
+        let binned = RGBColor(r, g, b);
+        chart.draw_series(
+            stats
+                .iter()
+                .filter(|s| !s.2)
+                .map(|&(j, v, _)| Circle::new((j as f64 - 0.12, v), 4, scalar.stroke_width(2))),
+        )?;
+        chart.draw_series(
+            stats
+                .iter()
+                .filter(|s| s.2)
+                .map(|&(j, v, _)| Cross::new((j as f64 + 0.12, v), 5, binned.stroke_width(2))),
+        )?;
+        Ok(())
+    })
+}
