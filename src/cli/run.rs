@@ -82,12 +82,13 @@ fn show(p: Progress) {
             time_fs,
             end_fs,
             particles,
+            sign_ratio,
             norm,
             events_per_s,
             elapsed_s,
             left_s,
         } => println!(
-            "t {time_fs:>8.2} / {end_fs:.2} fs | particles {particles:>10} | norm {norm:.5} | events/s {events_per_s:>9.3e} | elapsed {} | left {}",
+            "t {time_fs:>8.2} / {end_fs:.2} fs | particles {particles:>10} | ∫|W|/∫W {sign_ratio:>6.3} | norm {norm:.5} | events/s {events_per_s:>9.3e} | elapsed {} | left {}",
             hms(elapsed_s),
             hms(left_s)
         ),

@@ -153,6 +153,10 @@ pub struct Annihilation {
     /// Annihilate when the global particle count exceeds trigger × the initial count.
     #[serde(default = "default_trigger")]
     pub trigger: f64,
+    /// Live samples the run may hold on all ranks together (default 4 × numerics.particles).
+    /// When an annihilation at the job's cells leaves more than half of it, coarser cells
+    /// are used for that pass (and reported).
+    pub budget: Option<u64>,
     #[serde(default)]
     pub cells: CellKind,
     /// Merge a cell with its images under particle exchange (identical particles only).
@@ -166,6 +170,7 @@ impl Default for Annihilation {
             cell_x: None,
             cell_k: None,
             trigger: default_trigger(),
+            budget: None,
             cells: CellKind::Full,
             merge_exchange: true,
         }
@@ -514,6 +519,14 @@ pub fn validate(job: &Job) -> Result<()> {
     }
     if let Some(c) = a.cell_k {
         positive("annihilation.cell_k", c)?;
+    }
+    if let Some(b) = a.budget
+        && b < 2 * job.numerics.particles
+    {
+        bail!(
+            "annihilation.budget: must be at least twice numerics.particles ({}), got {b}",
+            2 * job.numerics.particles
+        );
     }
     if a.trigger <= 1.0 || !a.trigger.is_finite() {
         bail!(

@@ -4,6 +4,7 @@
 //! timers and stop requests. Knows nothing about files or printing.
 
 pub mod annihilate;
+pub mod budget;
 pub mod comm;
 #[cfg(feature = "app")]
 pub mod mpi;

@@ -76,6 +76,10 @@ pub const ANNIHILATION_PREFIX: &str = "annihilation_";
 pub const ANNIHILATION_TIME: Dataset = ds("annihilation_time", "fs");
 pub const ANNIHILATION_BEFORE: Dataset = ds("annihilation_before", "1");
 pub const ANNIHILATION_CANCELLED: Dataset = ds("annihilation_cancelled", "1");
+/// The resolution used: level (cells 2^level × the job's) and the cell sizes.
+pub const ANNIHILATION_LEVEL: Dataset = ds("annihilation_level", "1");
+pub const ANNIHILATION_CELL_X: Dataset = ds("annihilation_cell_x", "nm");
+pub const ANNIHILATION_CELL_K: Dataset = ds("annihilation_cell_k", "1/nm");
 
 /// The group of machine- and run-dependent figures.
 pub const RUN_GROUP: &str = "run";

@@ -26,15 +26,25 @@ fn bits_for(count: u64) -> u32 {
 }
 
 impl CellMesh {
+    /// The job's cells (`annihilation.cell_x`, `annihilation.cell_k` or their defaults).
     pub fn new(setup: &Setup) -> Result<Self> {
+        Self::at_level(setup, 0)
+    }
+
+    /// Cells 2^level times the job's in both x and k (level 0: the job's own). Coarser
+    /// levels cancel more and bias more; the driver uses them only to stay within the
+    /// sample budget (docs/method.md §3).
+    pub fn at_level(setup: &Setup, level: u32) -> Result<Self> {
+        let scale = f64::from(1u32 << level.min(20));
+        let (cell_x, cell_k) = (setup.cell_x * scale, setup.cell_k * scale);
         let width = setup.hi - setup.lo;
         let (x0, xr, k0, kr) = match setup.cells {
             CellKind::Full => (setup.lo, width, -setup.k_max, 2.0 * setup.k_max),
             // Deviations from the centre of mass lie within ±L and ±2 k_max.
             CellKind::Relative => (-width, 2.0 * width, -2.0 * setup.k_max, 4.0 * setup.k_max),
         };
-        let nx = (xr / setup.cell_x).ceil() as u64;
-        let nk = (kr / setup.cell_k).ceil() as u64;
+        let nx = (xr / cell_x).ceil().max(1.0) as u64;
+        let nk = (kr / cell_k).ceil().max(1.0) as u64;
         let bits_k = bits_for(nk);
         let bits_one = bits_for(nx) + bits_k;
         let needed = bits_one as usize * setup.n + 16;
@@ -51,13 +61,18 @@ impl CellMesh {
             n: setup.n,
             x0,
             k0,
-            cell_x: setup.cell_x,
-            cell_k: setup.cell_k,
+            cell_x,
+            cell_k,
             nx,
             nk,
             bits_k,
             bits_one,
         })
+    }
+
+    /// Cell sizes: nm and 1/nm.
+    pub fn cell_sizes(&self) -> (f64, f64) {
+        (self.cell_x, self.cell_k)
     }
 
     /// Occupied-cell capacity of the mesh (its volume), for reports.

@@ -55,9 +55,14 @@ pub struct Setup {
     pub seed: u64,
     pub target: u64,
     pub trigger: f64,
+    /// Live samples allowed on all ranks together.
+    pub budget: u64,
     /// Memory cap per rank for particles, bytes.
     pub memory_limit: f64,
 }
+
+/// Default sample budget, in units of the initial sample count.
+pub const DEFAULT_BUDGET_FACTOR: u64 = 4;
 
 /// Physical memory of this machine in bytes (from /proc/meminfo; 8 GiB if unknown).
 pub fn machine_memory() -> f64 {
@@ -149,6 +154,10 @@ impl Setup {
             seed: job.numerics.seed,
             target: job.numerics.particles,
             trigger: job.annihilation.trigger,
+            budget: job
+                .annihilation
+                .budget
+                .unwrap_or(DEFAULT_BUDGET_FACTOR * job.numerics.particles),
             memory_limit,
             text: loaded.text.clone(),
             job,
@@ -158,6 +167,18 @@ impl Setup {
     /// The initial N-body Wigner function (fails when the Slater determinant vanishes).
     pub fn initial_state(&self) -> Result<NBodyWigner> {
         NBodyWigner::new(&self.orbitals, self.stats)
+    }
+
+    /// Period 2π/d in k of the exchange (cross-Wigner) oscillation, 1/nm, for identical
+    /// particles (d the largest distance between orbital centres); None otherwise.
+    pub fn exchange_period(&self) -> Option<f64> {
+        if !self.stats.identical() || self.orbitals.len() < 2 {
+            return None;
+        }
+        let c: Vec<f64> = self.orbitals.iter().map(|o| o.x0).collect();
+        let d = c.iter().cloned().fold(f64::NEG_INFINITY, f64::max)
+            - c.iter().cloned().fold(f64::INFINITY, f64::min);
+        (d > 0.0).then(|| 2.0 * std::f64::consts::PI / d)
     }
 
     /// Bytes per particle in the store.

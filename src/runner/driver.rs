@@ -1,7 +1,8 @@
 //! The run: initial particles, then (advance → annihilate → observe → write)* to the end.
 
 use crate::config::job::LoadedJob;
-use crate::engine::annihilate::{self, CellMesh};
+use crate::engine::annihilate;
+use crate::engine::budget::{Levels, annihilate_within_budget};
 use crate::engine::comm::{Comm, agree};
 use crate::engine::observe;
 use crate::engine::start::initial_state;
@@ -155,7 +156,8 @@ fn drive(
     progress: Sink,
 ) -> Result<Ending> {
     let root = comm.is_root();
-    let mesh = CellMesh::new(setup)?;
+    let levels = Levels::new(setup)?;
+    let mut coarsest_level = 0u32;
     let obs_path = opts.out.join(names::OBSERVABLES_FILE);
     let observe = |st: &State, out: &mut ResultFile, timers: &mut Timers| {
         let t0 = Instant::now();
@@ -215,11 +217,31 @@ fn drive(
             st.gone.momentum[i] += t[2 * g + i];
         }
         events += t[3 * g] as u64;
-        let count = t[3 * g + 1] as u64;
+        let mut count = t[3 * g + 1] as u64;
         timers.add(Phase::Bookkeeping, t0);
-        if count > threshold {
+        if count > threshold.min(setup.budget) {
             let t0 = Instant::now();
-            let rep = annihilate::annihilate(setup, &mesh, &mut st.store, st.step, comm);
+            let (rep, level) =
+                annihilate_within_budget(setup, &levels, &mut st.store, st.step, comm);
+            if level > coarsest_level {
+                coarsest_level = level;
+                if root {
+                    let (cx, ck) = levels.cell_sizes(level);
+                    progress(Progress::Warning(format!(
+                        "t = {} fs: to keep within the budget of {} samples (annihilation.budget), annihilation \
+                         used cells of {cx:.3} nm × {ck:.4} 1/nm, {}× coarser than the job's {:.3} nm × {:.4} 1/nm; \
+                         coarser cells blur the Wigner function (Δk = {:.4} 1/nm{}) and may bias the result: \
+                         raise the budget or check convergence",
+                        st.step as f64 * setup.dt,
+                        setup.budget,
+                        1u32 << level,
+                        setup.cell_x,
+                        setup.cell_k,
+                        setup.dk,
+                        exchange_note(setup),
+                    )));
+                }
+            }
             timers.add_secs(Phase::Binning, rep.binning_s);
             timers.add_secs(Phase::Reduction, rep.reduction_s);
             // The rest of the call (the global before/after counts, which also absorb the
@@ -236,11 +258,16 @@ fn drive(
                 rep.selection_s + t0.elapsed().as_secs_f64(),
             );
             st.annihilations += 1;
+            count = rep.after;
             bytes_sent.push(8.0 * (rep.words_sent + moved) as f64);
             cells.push(rep.local_cells as f64);
             if root {
                 let rec = &mut out.records;
+                let (cx, ck) = levels.cell_sizes(level);
                 for (d, v) in [
+                    (names::ANNIHILATION_LEVEL, level as f64),
+                    (names::ANNIHILATION_CELL_X, cx),
+                    (names::ANNIHILATION_CELL_K, ck),
                     (names::ANNIHILATION_TIME, st.step as f64 * setup.dt),
                     (names::ANNIHILATION_BEFORE, rep.before as f64),
                     (
@@ -348,10 +375,22 @@ fn drive(
                 .and_then(|s| s.data.last())
                 .copied()
                 .unwrap_or(f64::NAN);
+            let last = |d: names::Dataset| {
+                out.series
+                    .get(d.name)
+                    .and_then(|s| s.data.last())
+                    .copied()
+                    .unwrap_or(f64::NAN)
+            };
+            let (pos, neg) = (
+                last(names::PARTICLES_POSITIVE),
+                last(names::PARTICLES_NEGATIVE),
+            );
             progress(Progress::Step {
                 time_fs: st.step as f64 * setup.dt,
                 end_fs: setup.steps as f64 * setup.dt,
                 particles: count,
+                sign_ratio: (pos + neg) / (pos - neg).abs(),
                 norm,
                 events_per_s: events as f64 / el.max(1e-9),
                 elapsed_s: el,
@@ -370,4 +409,13 @@ fn drive(
         progress(Progress::Phases(rows));
     }
     Ok(Ending::Finished)
+}
+
+/// ", exchange period 2π/d = … 1/nm" for identical particles (d the largest orbital
+/// separation), which annihilation cells must resolve in k.
+fn exchange_note(setup: &Setup) -> String {
+    match setup.exchange_period() {
+        Some(p) => format!(", exchange period 2π/d = {p:.4} 1/nm"),
+        None => String::new(),
+    }
 }

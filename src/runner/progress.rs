@@ -36,7 +36,10 @@ pub enum Progress {
     Step {
         time_fs: f64,
         end_fs: f64,
+        /// Live samples on all ranks (after this step's annihilation, if any).
         particles: u64,
+        /// ∫|W|/∫W: samples per unit of net sign, at the last output.
+        sign_ratio: f64,
         norm: f64,
         events_per_s: f64,
         elapsed_s: f64,

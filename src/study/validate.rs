@@ -16,6 +16,7 @@ use crate::io::results::ResultFile;
 use crate::physics::numerics::Setup;
 use crate::reference;
 use crate::runner::driver::{self, RunOptions};
+use crate::runner::progress::Progress;
 use crate::study::accuracy::{common_frames, expected_noise_l1};
 use crate::viz::chart::{Area, FONT_NAME, LABEL_PX, TICK_PX, TITLE_PX, ensure_font, render};
 use crate::viz::colormap;
@@ -42,7 +43,7 @@ pub const QUICK: [&str; 5] = [
 /// Options of `signfold validate`.
 #[derive(clap::Args, Clone, Debug)]
 pub struct Options {
-    /// Only the quick subset (one job per code path, at a fifth of the particles).
+    /// Only the quick subset (one job per code path).
     #[arg(long)]
     pub quick: bool,
     /// Where VALIDATION.md, validation.csv and validation.png are written.
@@ -267,6 +268,8 @@ pub struct JobOutcome {
     pub particles: u64,
     pub checks: Vec<Check>,
     pub floors: Floors,
+    /// What the run warned about (e.g. cells coarsened to stay within the budget).
+    pub warnings: Vec<String>,
 }
 
 /// Run the suite; write VALIDATION.md (or VALIDATION-quick.md), a CSV and a figure into
@@ -282,18 +285,15 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
             .unwrap_or_default()
             .to_string_lossy()
             .to_string();
-        let mut overrides = Vec::new();
-        let base = job::load(&file, &[])?;
-        if opts.quick {
-            let n = (base.job.numerics.particles / 5).max(20_000);
-            overrides.push(format!("numerics.particles={n}"));
-        }
-        let loaded = job::load(&file, &overrides)?;
+        let loaded = job::load(&file, &[])?;
         let started = Instant::now();
         let exact = reference::solve(&loaded).with_context(|| format!("{name}: reference"))?;
         let ref_s = started.elapsed().as_secs_f64();
         let started = Instant::now();
-        let mc = run_monte_carlo(&loaded, &runs.join(&name))?;
+        let (mc, warnings) = run_monte_carlo(&loaded, &runs.join(&name))?;
+        for w in &warnings {
+            say(format!("{name}: warning: {w}"));
+        }
         let wall = started.elapsed().as_secs_f64();
         let n = loaded.job.particles.count;
         let groups = loaded.job.numerics.groups as usize;
@@ -312,6 +312,7 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
             particles: loaded.job.numerics.particles,
             checks,
             floors: fl,
+            warnings,
         });
     }
     let suffix = if opts.quick { "-quick" } else { "" };
@@ -337,8 +338,9 @@ fn sample_resolution(mc: &ResultFile) -> f64 {
     1.0 / (pos - neg).abs().max(1.0)
 }
 
-/// The Monte Carlo of one job in-process on one rank, into `dir` (replaced).
-fn run_monte_carlo(loaded: &LoadedJob, dir: &Path) -> Result<ResultFile> {
+/// The Monte Carlo of one job in-process on one rank, into `dir` (replaced), and the
+/// warnings it emitted.
+fn run_monte_carlo(loaded: &LoadedJob, dir: &Path) -> Result<(ResultFile, Vec<String>)> {
     let setup = Setup::new(loaded)?;
     let opts = RunOptions {
         out: dir.to_path_buf(),
@@ -346,8 +348,16 @@ fn run_monte_carlo(loaded: &LoadedJob, dir: &Path) -> Result<ResultFile> {
         until: None,
         walltime: None,
     };
-    driver::run(loaded, &setup, &opts, &Solo, &mut |_| {})?;
-    ResultFile::read(&dir.join(names::OBSERVABLES_FILE))
+    let mut warnings = Vec::new();
+    driver::run(loaded, &setup, &opts, &Solo, &mut |p| {
+        if let Progress::Warning(w) = p {
+            warnings.push(w);
+        }
+    })?;
+    Ok((
+        ResultFile::read(&dir.join(names::OBSERVABLES_FILE))?,
+        warnings,
+    ))
 }
 
 fn csv_text(outcomes: &[JobOutcome]) -> String {
@@ -439,6 +449,17 @@ fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
             o.floors.peak_particles,
             o.floors.wall_s
         );
+    }
+    let _ = writeln!(s, "\nWarnings of the runs:\n");
+    let mut warned = false;
+    for o in outcomes {
+        for w in &o.warnings {
+            warned = true;
+            let _ = writeln!(s, "- {}: {w}", o.name);
+        }
+    }
+    if !warned {
+        let _ = writeln!(s, "none.");
     }
     let _ = writeln!(s, "\nFailed checks:\n");
     let mut any = false;
