@@ -13,11 +13,18 @@ use std::process::ExitCode;
 
 /// `signfold check JOB`: validate on every rank, print the report once.
 pub fn command(job: &Path, set: &[String], world: &World) -> Result<ExitCode> {
-    let loaded = collective(signfold::config::job::load(job, set))?;
+    let loaded = collective(signfold::physics::defaults::load(job, set))?;
     let setup = collective(Setup::new(&loaded))?;
     let text = collective(report(&setup, world.size()))?;
     if world.is_root() {
         print!("{text}");
+        // The numerics derived from the physics, with why (also stored in every result).
+        if let Some(i) = loaded.text.find("# Numerics derived by signfold") {
+            print!(
+                "{}",
+                loaded.text[i..].replace("# ", "").trim_end().to_string() + "\n"
+            );
+        }
     }
     Ok(ExitCode::SUCCESS)
 }

@@ -20,7 +20,7 @@ pub fn command(
         points_per_axis: points,
         dt,
     };
-    let loaded = signfold::config::job::load(job, overrides)?;
+    let loaded = signfold::physics::defaults::load(job, overrides)?;
     let target = out.join(names::REFERENCE_FILE);
     if target.exists() && !force {
         anyhow::bail!(

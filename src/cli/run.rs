@@ -23,7 +23,7 @@ pub struct RunArgs {
 pub fn run(args: RunArgs, world: &World) -> anyhow::Result<ExitCode> {
     install_signals()?;
     let walltime = collective(args.walltime.as_deref().map(parse_walltime).transpose())?;
-    let loaded = collective(signfold::config::job::load(&args.job, &args.set))?;
+    let loaded = collective(signfold::physics::defaults::load(&args.job, &args.set))?;
     let setup = collective(Setup::new(&loaded))?;
     let opts = RunOptions {
         out: args.out,

@@ -71,7 +71,9 @@ pub struct Domain {
     #[serde(default = "default_mesh_cells")]
     pub cells: usize,
     pub boundary: Boundary,
-    /// Momentum range as a wavevector: |k| ≤ k_max = p_max/ħ, 1/nm.
+    /// Momentum range as a wavevector: |k| ≤ k_max = p_max/ħ, 1/nm (unset: derived from
+    /// the physics, `physics::defaults`).
+    #[serde(default = "unset")]
     pub k_max: f64,
 }
 
@@ -114,11 +116,13 @@ pub enum Pair {
 #[derive(Deserialize, Serialize, Clone, Debug)]
 #[serde(deny_unknown_fields)]
 pub struct Numerics {
-    /// Coherence length L_c, nm (sets Δk = π/L_c).
+    /// Coherence length L_c, nm (unset: derived from the orbitals, `physics::defaults`).
+    #[serde(default = "unset")]
     pub coherence_length: f64,
     /// Roll-off ℓ of the kernel window, nm (default L_c/8).
     pub rolloff: Option<f64>,
-    /// Synchronisation step, fs.
+    /// Synchronisation step, fs (unset: derived from the generation rate).
+    #[serde(default = "unset")]
     pub sync_step: f64,
     /// End time, fs.
     pub end_time: f64,
@@ -245,6 +249,16 @@ pub struct Job {
     pub output: Output,
     #[serde(default)]
     pub checkpoint: Checkpoints,
+}
+
+/// A numeric key the job did not set, to be derived from the physics (NaN).
+fn unset() -> f64 {
+    f64::NAN
+}
+
+/// Whether a derived key is still unset.
+pub fn is_unset(v: f64) -> bool {
+    v.is_nan()
 }
 
 fn one() -> f64 {
@@ -436,7 +450,9 @@ pub fn validate(job: &Job) -> Result<()> {
     if d.cells < 4 {
         bail!("domain.cells: must be at least 4 (got {})", d.cells);
     }
-    positive("domain.k_max", d.k_max)?;
+    if !is_unset(d.k_max) {
+        positive("domain.k_max", d.k_max)?;
+    }
     for (i, p) in job.potentials.iter().enumerate() {
         let key = |k: &str| format!("potential[{i}].{k}");
         match p {
@@ -486,8 +502,12 @@ pub fn validate(job: &Job) -> Result<()> {
         positive("pair.softening", softening)?;
     }
     let m = &job.numerics;
-    positive("numerics.coherence_length", m.coherence_length)?;
-    if let Some(r) = m.rolloff {
+    if !is_unset(m.coherence_length) {
+        positive("numerics.coherence_length", m.coherence_length)?;
+    }
+    if let Some(r) = m.rolloff
+        && !is_unset(m.coherence_length)
+    {
         positive("numerics.rolloff", r)?;
         if r > m.coherence_length / 2.0 {
             bail!(
@@ -496,7 +516,9 @@ pub fn validate(job: &Job) -> Result<()> {
             );
         }
     }
-    positive("numerics.sync_step", m.sync_step)?;
+    if !is_unset(m.sync_step) {
+        positive("numerics.sync_step", m.sync_step)?;
+    }
     positive("numerics.end_time", m.end_time)?;
     if m.particles == 0 {
         bail!("numerics.particles: must be at least 1");

@@ -374,12 +374,13 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
         v(cp::ABSORBED_RIGHT)?,
         v(cp::LOST_MOMENTUM)?,
     );
-    let job = job::from_text(
+    let mut job = job::from_text(
         &text,
         &format!("job stored in {shown}"),
         PathBuf::from(job_dir),
         &[],
     )?;
+    crate::physics::defaults::resolve(&mut job)?;
     // This rank's slice: reads may fail on some ranks only, so agree before going on.
     let (p, r) = (comm.size() as u64, comm.rank() as u64);
     let (from, to) = ((total * r / p) as usize, (total * (r + 1) / p) as usize);

@@ -4,6 +4,7 @@
 //! estimators, and the numerics derived from a job. No MPI, no files, no printing.
 
 pub mod cells;
+pub mod defaults;
 pub mod estimators;
 pub mod flight;
 pub mod grid;

@@ -10,7 +10,6 @@
 //! from the start of sampling to the last output; `launch_s` adds process start-up, job
 //! set-up and MPI start-up as the driver saw them.
 
-use crate::config::job;
 use crate::engine::timers::PHASES;
 use crate::io::names;
 use crate::io::results::ResultFile;
@@ -248,7 +247,7 @@ pub fn drive(opts: &Options, say: &mut dyn FnMut(String)) -> Result<Vec<PathBuf>
     if opts.repeat == 0 {
         bail!("--repeat must be at least 1");
     }
-    let loaded = job::load(&opts.job, &opts.set)?;
+    let loaded = crate::physics::defaults::load(&opts.job, &opts.set)?;
     let numerics = &loaded.job.numerics;
     let mut set = opts.set.clone();
     if opts.quick {

@@ -9,7 +9,7 @@
 //! relative L1 distance.
 
 use crate::analysis::stats::{self, BinnedTest, ScalarTest};
-use crate::config::job::{self, LoadedJob};
+use crate::config::job::LoadedJob;
 use crate::engine::comm::Solo;
 use crate::io::names::{self, Dataset};
 use crate::io::results::ResultFile;
@@ -285,7 +285,7 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
             .unwrap_or_default()
             .to_string_lossy()
             .to_string();
-        let loaded = job::load(&file, &[])?;
+        let loaded = crate::physics::defaults::load(&file, &[])?;
         let started = Instant::now();
         let exact = reference::solve(&loaded).with_context(|| format!("{name}: reference"))?;
         let ref_s = started.elapsed().as_secs_f64();

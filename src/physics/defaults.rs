@@ -1,0 +1,204 @@
+//! Numerics that follow from the physics when the job does not set them
+//! (docs/method.md §2.6): the coherence length, the momentum range and the synchronisation
+//! step. Each derived value, and why, is appended to the job text as comments, so every
+//! result file records it; a job that sets a key keeps its own value.
+
+use crate::config::job::{self, LoadedJob, Pair, PotentialTerm};
+use crate::physics::numerics::Setup;
+use crate::physics::orbitals::Gaussian;
+use crate::physics::potential::OneBody;
+use crate::physics::units;
+use anyhow::{Result, anyhow};
+use std::path::Path;
+
+/// Largest fraction of the kernel's weight allowed beyond the momentum cap (the level at
+/// which `check` warns).
+pub const KERNEL_TAIL: f64 = 1e-3;
+/// First line of the notes appended to the job text.
+const NOTES_HEADER: &str = "# Numerics derived by signfold (the job did not set these keys):";
+/// Step of the k_max search, 1/nm, and its upper end.
+const K_STEP: f64 = 0.5;
+const K_LIMIT: f64 = 30.0;
+
+/// Load a job (`config::job::load`) and derive the numerics it leaves unset.
+pub fn load(path: &Path, overrides: &[String]) -> Result<LoadedJob> {
+    let mut loaded = job::load(path, overrides)?;
+    resolve(&mut loaded)?;
+    Ok(loaded)
+}
+
+/// Fill in unset numerics:
+///
+/// - L_c = max(2 (d + 3w), 8w, 30 nm), capped at the domain width, with d the largest
+///   distance between orbital centres and w the largest orbital width: the window then
+///   holds every pair of orbitals with their tails (the exchange and cross terms of W
+///   oscillate in k with period 2π/d and need transfers resolved below it), and a packet's
+///   own coherence (about its width).
+/// - k_max: from the energy the dynamics can reach, k = 1.25 sqrt(k_orb² + 2mΔE/ħ²) with
+///   k_orb = max |k₀| + 5/(2w) and ΔE the largest potential or pair energy scale, then
+///   raised in steps of 0.5/nm until the kernel keeps less than [`KERNEL_TAIL`] of its
+///   weight beyond the cap.
+/// - sync step: ln(trigger)/(2Γ_max), the time in which the count grows by the trigger
+///   factor at the largest generation rate, and at most end_time/20, rounded down to 1, 2
+///   or 5 × 10ⁿ fs.
+pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
+    let mut notes: Vec<String> = Vec::new();
+    let j = &loaded.job;
+    let orbitals: Vec<Gaussian> = j.orbitals.iter().map(Gaussian::from).collect();
+    let widths: Vec<f64> = orbitals.iter().map(|o| o.sigma).collect();
+    let centres: Vec<f64> = orbitals.iter().map(|o| o.x0).collect();
+    let w: f64 = widths.iter().cloned().fold(0.0, f64::max);
+    let d = centres.iter().cloned().fold(f64::NEG_INFINITY, f64::max)
+        - centres.iter().cloned().fold(f64::INFINITY, f64::min);
+    let width = j.domain.x_max - j.domain.x_min;
+    if job::is_unset(j.numerics.coherence_length) {
+        let lc = (2.0 * (d + 3.0 * w)).max(8.0 * w).max(30.0).min(width);
+        let lc = (lc * 10.0).ceil() / 10.0;
+        loaded.job.numerics.coherence_length = lc;
+        notes.push(format!(
+            "numerics.coherence_length = {lc}  # max(2 (d + 3w), 8w, 30 nm) ≤ domain width; d = {d} nm, w = {w} nm"
+        ));
+    }
+    if job::is_unset(loaded.job.domain.k_max) {
+        let j = &loaded.job;
+        let k_orb = orbitals
+            .iter()
+            .map(|o| o.k0.abs() + 5.0 / (2.0 * o.sigma))
+            .fold(0.0, f64::max);
+        let c =
+            units::HBAR * units::HBAR / (2.0 * units::mass_from_electron_masses(j.particles.mass));
+        let de = energy_scale(loaded, d + 10.0 * w);
+        let mut k = (1.25 * (k_orb * k_orb + de / c).sqrt() / K_STEP).ceil() * K_STEP;
+        loop {
+            loaded.job.domain.k_max = k;
+            let tail = kernel_tail(loaded)?;
+            if tail <= KERNEL_TAIL || k >= K_LIMIT {
+                notes.push(format!(
+                    "domain.k_max = {k}  # 1.25 sqrt(k_orb² + 2mΔE/ħ²) with k_orb = {k_orb:.3}/nm, ΔE = {de:.4} eV, \
+                     raised until the kernel tail beyond the cap is {tail:.1e} (≤ {KERNEL_TAIL:.0e})"
+                ));
+                break;
+            }
+            k += K_STEP;
+        }
+    }
+    if job::is_unset(loaded.job.numerics.sync_step) {
+        let end = loaded.job.numerics.end_time;
+        loaded.job.numerics.sync_step = end / 20.0;
+        let setup = Setup::new(loaded)?;
+        let growth = if setup.gamma_max > 0.0 {
+            loaded.job.annihilation.trigger.ln() / (2.0 * setup.gamma_max)
+        } else {
+            f64::INFINITY
+        };
+        let dt = round_down_125(growth.min(end / 20.0));
+        loaded.job.numerics.sync_step = dt;
+        notes.push(format!(
+            "numerics.sync_step = {dt}  # min(ln(trigger)/(2Γ_max), end_time/20) rounded down; Γ_max = {:.4}/fs",
+            setup.gamma_max
+        ));
+    }
+    // A stored job (checkpoint) already carries the notes: the values are derived again,
+    // identically, and the text stays as it was.
+    if !notes.is_empty() && !loaded.text.contains(NOTES_HEADER) {
+        let mut text = loaded.text.trim_end().to_string();
+        text.push_str("\n\n");
+        text.push_str(NOTES_HEADER);
+        text.push('\n');
+        for n in &notes {
+            text.push_str("# ");
+            text.push_str(n);
+            text.push('\n');
+        }
+        loaded.text = text;
+    }
+    job::validate(&loaded.job).map_err(|e| anyhow!("{}: {e}", loaded.origin))
+}
+
+/// The largest energy the potentials and the pair term can hand a particle within
+/// `reach` nm of the orbital centres, eV: barrier and Gaussian heights, table values,
+/// |slope|·domain width for a field, the trap energy at the reach, and the pair energy at
+/// the softening length.
+fn energy_scale(loaded: &LoadedJob, reach: f64) -> f64 {
+    let j = &loaded.job;
+    let width = j.domain.x_max - j.domain.x_min;
+    let mut de: f64 = 0.0;
+    for p in &j.potentials {
+        de = de.max(match p {
+            PotentialTerm::Barrier { height, .. } | PotentialTerm::Gaussian { height, .. } => {
+                height.abs()
+            }
+            PotentialTerm::Field { slope } => slope.abs() * width,
+            PotentialTerm::Harmonic { hbar_omega, .. } => {
+                // U = m ω² r²/2 = (ħω)² r² / (4 ħ²/2m).
+                let c = units::HBAR * units::HBAR
+                    / (2.0 * units::mass_from_electron_masses(j.particles.mass));
+                hbar_omega * hbar_omega * reach * reach / (4.0 * c)
+            }
+            PotentialTerm::Table { .. } => OneBody::from_job(
+                std::slice::from_ref(p),
+                width / j.domain.cells as f64,
+                units::mass_from_electron_masses(j.particles.mass),
+                &loaded.base_dir,
+            )
+            .map(|u| {
+                let n = 2000;
+                (0..=n)
+                    .map(|i| u.total(j.domain.x_min + width * i as f64 / n as f64).abs())
+                    .fold(0.0, f64::max)
+            })
+            .unwrap_or(0.0),
+        });
+    }
+    if let Pair::SoftCoulomb {
+        permittivity,
+        softening,
+    } = j.pair
+        && j.particles.count >= 2
+    {
+        de = de.max(units::COULOMB / (permittivity * softening));
+    }
+    de
+}
+
+/// Largest fraction of kernel weight beyond the cap over the one-body and pair tables.
+fn kernel_tail(loaded: &LoadedJob) -> Result<f64> {
+    let mut l = loaded.clone();
+    if job::is_unset(l.job.numerics.sync_step) {
+        l.job.numerics.sync_step = l.job.numerics.end_time / 20.0;
+    }
+    let s = Setup::new(&l)?;
+    Ok([&s.table1, &s.table2]
+        .into_iter()
+        .flatten()
+        .map(|t| t.tail)
+        .fold(0.0, f64::max))
+}
+
+/// The largest 1, 2 or 5 × 10ⁿ not above `v`.
+fn round_down_125(v: f64) -> f64 {
+    let e = v.log10().floor();
+    let base = 10f64.powf(e);
+    let m = v / base;
+    let f = if m >= 5.0 {
+        5.0
+    } else if m >= 2.0 {
+        2.0
+    } else {
+        1.0
+    };
+    // Round the representation to avoid 0.30000000000000004-style values.
+    ((f * base) * 1e9).round() / 1e9
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sync_steps_are_round() {
+        assert_eq!(round_down_125(0.73), 0.5);
+        assert_eq!(round_down_125(3.9), 2.0);
+        assert_eq!(round_down_125(12.0), 10.0);
+    }
+}
