@@ -23,8 +23,16 @@ fn a_job_without_numerics_gets_them_with_reasons() {
         assert!(t.tail <= defaults::KERNEL_TAIL, "tail {}", t.tail);
     }
     // Every derived value is recorded in the job text that result files store.
-    for key in ["numerics.coherence_length =", "domain.k_max =", "numerics.sync_step ="] {
-        assert!(loaded.text.contains(key), "{key} missing from\n{}", loaded.text);
+    for key in [
+        "numerics.coherence_length =",
+        "domain.k_max =",
+        "numerics.sync_step =",
+    ] {
+        assert!(
+            loaded.text.contains(key),
+            "{key} missing from\n{}",
+            loaded.text
+        );
     }
     // Resolving the stored text again (resume) gives the same values and the same text.
     let mut again =

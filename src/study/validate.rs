@@ -55,6 +55,10 @@ pub struct Options {
     /// Only the jobs whose file name contains this text.
     #[arg(long)]
     pub only: Option<String>,
+    /// Also rerun each job at 2× and 4× the sample budget and at 1.5× the coherence
+    /// length, and test whether the answer moved beyond the noise (no exact answer needed).
+    #[arg(long)]
+    pub systematic: bool,
 }
 
 /// One test of one observable at one output time.
@@ -185,6 +189,73 @@ pub fn compare(
     out
 }
 
+/// Compare two Monte Carlo runs of one job (a variant against the base): the same tests
+/// as [`compare`] with the difference studentised by sqrt(se_a² + se_b²), ν = B − 1 (the
+/// smaller of the two runs' degrees of freedom, conservative).
+pub fn compare_runs(
+    job: &str,
+    groups: usize,
+    base: &ResultFile,
+    variant: &ResultFile,
+) -> Vec<Check> {
+    let mut out = Vec::new();
+    let nx = base.x.len();
+    for (i, j, time) in common_frames(variant, base) {
+        for d in [names::NORM, names::NORM_RIGHT, names::ENERGY] {
+            let get =
+                |f: &ResultFile, t: usize, name: &str| f.series.get(name).map(|s| s.frame(t)[0]);
+            let err = names::error_of(d.name);
+            let (Some(a), Some(ea), Some(b), Some(eb)) = (
+                get(variant, i, d.name),
+                get(variant, i, &err),
+                get(base, j, d.name),
+                get(base, j, &err),
+            ) else {
+                continue;
+            };
+            let se = (ea * ea + eb * eb).sqrt();
+            out.push(Check {
+                job: job.into(),
+                time,
+                observable: d.name,
+                kind: Kind::Scalar {
+                    estimate: a,
+                    se,
+                    exact: b,
+                    test: stats::scalar_test(a, se, b, groups, 0.0),
+                },
+            });
+        }
+        for (d, upper) in [(names::DENSITY, false), (names::PAIR_DENSITY, true)] {
+            let err = names::error_of(d.name);
+            let (Some(a), Some(ea), Some(b), Some(eb)) = (
+                variant.series.get(d.name),
+                variant.series.get(&err),
+                base.series.get(d.name),
+                base.series.get(&err),
+            ) else {
+                continue;
+            };
+            let se: Vec<f64> = ea
+                .frame(i)
+                .iter()
+                .zip(eb.frame(j))
+                .map(|(x, y)| (x * x + y * y).sqrt())
+                .collect();
+            let test = stats::binned_test(a.frame(i), &se, b.frame(j), groups, |k| {
+                !upper || k / nx <= k % nx
+            });
+            out.push(Check {
+                job: job.into(),
+                time,
+                observable: d.name,
+                kind: Kind::Binned(test),
+            });
+        }
+    }
+    out
+}
+
 /// Transmitted norm at frame `t`: `norm_right` with its error (Monte Carlo), or absorbed
 /// right plus the one-body norm at x > 0 (reference, which has no `norm_right`).
 fn transmitted_at(f: &ResultFile, t: usize) -> Option<(f64, f64)> {
@@ -270,6 +341,44 @@ pub struct JobOutcome {
     pub floors: Floors,
     /// What the run warned about (e.g. cells coarsened to stay within the budget).
     pub warnings: Vec<String>,
+    /// Variants against the base run: (label, checks).
+    pub systematic: Vec<(String, Vec<Check>)>,
+}
+
+/// Rerun a job at 2× and 4× the budget and at 1.5× the coherence length and compare each
+/// with the base run.
+fn variants(
+    file: &Path,
+    loaded: &LoadedJob,
+    base: &ResultFile,
+    dir: &Path,
+    groups: usize,
+    say: &mut dyn FnMut(String),
+) -> Result<Vec<(String, Vec<Check>)>> {
+    let budget = Setup::new(loaded)?.budget;
+    let lc = loaded.job.numerics.coherence_length;
+    let mut out = Vec::new();
+    for (label, set) in [
+        ("2× budget", format!("annihilation.budget={}", 2 * budget)),
+        ("4× budget", format!("annihilation.budget={}", 4 * budget)),
+        (
+            "1.5× L_c",
+            format!("numerics.coherence_length={}", 1.5 * lc),
+        ),
+    ] {
+        let v = crate::physics::defaults::load(file, std::slice::from_ref(&set))?;
+        let tag = label.replace(['×', ' '], "");
+        let (mc, _) = run_monte_carlo(&v, &dir.with_extension(&tag))?;
+        let checks = compare_runs(&format!("{} {label}", dir.display()), groups, base, &mc);
+        let failed = checks.iter().filter(|c| !c.passed()).count();
+        say(format!(
+            "{}: {label}: {} checks against the base run, {failed} moved beyond |stat| ≤ {ACCEPT}",
+            dir.file_name().unwrap_or_default().to_string_lossy(),
+            checks.len()
+        ));
+        out.push((label.to_string(), checks));
+    }
+    Ok(out)
 }
 
 /// Run the suite; write VALIDATION.md (or VALIDATION-quick.md), a CSV and a figure into
@@ -306,6 +415,11 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
             "{name}: {} checks, {failed} outside |stat| ≤ {ACCEPT}; reference {ref_s:.0} s, Monte Carlo {wall:.0} s",
             checks.len()
         ));
+        let systematic = if opts.systematic {
+            variants(&file, &loaded, &mc, &runs.join(&name), groups, say)?
+        } else {
+            Vec::new()
+        };
         outcomes.push(JobOutcome {
             name,
             n,
@@ -313,6 +427,7 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
             checks,
             floors: fl,
             warnings,
+            systematic,
         });
     }
     let suffix = if opts.quick { "-quick" } else { "" };
@@ -324,7 +439,12 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
     std::fs::write(&csv, csv_text(&outcomes))
         .with_context(|| format!("cannot write {}", csv.display()))?;
     figure(&png, &outcomes)?;
-    let ok = outcomes.iter().all(|o| o.checks.iter().all(Check::passed));
+    let ok = outcomes.iter().all(|o| {
+        o.checks.iter().all(Check::passed)
+            && o.systematic
+                .iter()
+                .all(|(_, c)| c.iter().all(Check::passed))
+    });
     Ok((vec![md, csv, png], ok))
 }
 
@@ -449,6 +569,29 @@ fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
             o.floors.peak_particles,
             o.floors.wall_s
         );
+    }
+    if outcomes.iter().any(|o| !o.systematic.is_empty()) {
+        let _ = writeln!(
+            s,
+            "\nSystematic check (each variant against the base run, difference over the combined error):\n"
+        );
+        let _ = writeln!(s, "| job | variant | checks | moved | largest |stat| |");
+        let _ = writeln!(s, "|---|---|---|---|---|");
+        for o in outcomes {
+            for (label, checks) in &o.systematic {
+                let worst = checks
+                    .iter()
+                    .map(|c| c.statistic().abs())
+                    .fold(0.0, f64::max);
+                let _ = writeln!(
+                    s,
+                    "| {} | {label} | {} | {} | {worst:.2} |",
+                    o.name,
+                    checks.len(),
+                    checks.iter().filter(|c| !c.passed()).count()
+                );
+            }
+        }
     }
     let _ = writeln!(s, "\nWarnings of the runs:\n");
     let mut warned = false;
