@@ -57,7 +57,7 @@ pub enum Command {
         #[arg(long)]
         force: bool,
         /// Stop at the first synchronisation time ≥ T (fs).
-        #[arg(long, value_name = "T_FS")]
+        #[arg(long, value_name = "T_FS", allow_negative_numbers = true)]
         until: Option<f64>,
         /// Stop with a checkpoint before this much wall time has passed (HH:MM or HH:MM:SS).
         #[arg(long, value_name = "HH:MM")]
@@ -70,7 +70,7 @@ pub enum Command {
     Resume {
         dir: PathBuf,
         /// Stop again at the first synchronisation time ≥ T (fs).
-        #[arg(long, value_name = "T_FS")]
+        #[arg(long, value_name = "T_FS", allow_negative_numbers = true)]
         until: Option<f64>,
         #[arg(long, value_name = "HH:MM")]
         walltime: Option<String>,
@@ -98,7 +98,7 @@ pub enum Command {
         a: PathBuf,
         b: PathBuf,
         /// Exit 1 when a density distance exceeds X (relative L1).
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         tolerance: Option<f64>,
     },
     /// Write PNG pictures of a result file.

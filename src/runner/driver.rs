@@ -184,6 +184,34 @@ fn drive(
     }
     .min(setup.steps);
     let ck = &setup.job.checkpoint;
+    if opts.until.is_some() && stop_step <= st.step && st.step < setup.steps {
+        // --until at or before the current time: stop here, resumable. A fresh run writes
+        // its checkpoint now; a resumed one already stands on the checkpoint it read.
+        if fresh {
+            let t0 = Instant::now();
+            checkpoint::write(
+                &opts.out,
+                &st,
+                &out,
+                loaded,
+                st.step as f64 * setup.dt,
+                ck.keep,
+                comm,
+            )?;
+            timers.add(Phase::Checkpoint, t0);
+        }
+        if let Some(rows) = phase_table(&timers, started, comm) {
+            progress(Progress::Phases(rows));
+        }
+        if root {
+            progress(Progress::Stopped {
+                time_fs: st.step as f64 * setup.dt,
+                why: StopReason::Until,
+                dir: opts.out.clone(),
+            });
+        }
+        return Ok(Ending::Checkpointed);
+    }
     let every_steps = ck.every.map(|t| ((t / setup.dt).round() as u64).max(1));
     let mut last_checkpoint = Instant::now();
     let mut longest_checkpoint: f64 = (setup.checkpoint_bytes() / 50e6 / comm.size() as f64) + 2.0;
@@ -318,6 +346,9 @@ fn drive(
             last_checkpoint = Instant::now();
             timers.add(Phase::Checkpoint, t0);
             if signal || out_of_time || until {
+                if let Some(rows) = phase_table(&timers, started, comm) {
+                    progress(Progress::Phases(rows));
+                }
                 if root {
                     let why = if signal {
                         StopReason::Signal
@@ -331,9 +362,6 @@ fn drive(
                         why,
                         dir: opts.out.clone(),
                     });
-                }
-                if let Some(rows) = phase_table(&timers, started, comm) {
-                    progress(Progress::Phases(rows));
                 }
                 return Ok(Ending::Checkpointed);
             }
@@ -359,15 +387,17 @@ fn drive(
             });
         }
     }
+    // The last line says how the run ended (batch scripts look for it).
+    if let Some(rows) = phase_table(&timers, started, comm) {
+        progress(Progress::Phases(rows));
+    }
     if root {
         progress(Progress::Finished {
+            time_fs: st.step as f64 * setup.dt,
             path: obs_path.clone(),
             outputs: out.times().len(),
             elapsed_s: started.elapsed().as_secs_f64(),
         });
-    }
-    if let Some(rows) = phase_table(&timers, started, comm) {
-        progress(Progress::Phases(rows));
     }
     Ok(Ending::Finished)
 }

@@ -1,0 +1,128 @@
+//! Defects a tester found in stopping, validation, locking and comparing: each test
+//! states the contract that was broken.
+
+mod common;
+
+use common::*;
+use std::path::Path;
+
+/// A small free fermion pair: 2 fs sync steps to 8 fs, a second on one core.
+const JOB: &str = r#"
+[particles]
+count = 2
+statistics = "fermion"
+mass = 0.067
+
+[[orbital]]
+kind = "gaussian"
+centre = -20.0
+wavevector = 0.4
+width = 5.0
+
+[[orbital]]
+kind = "gaussian"
+centre = 20.0
+wavevector = -0.4
+width = 5.0
+
+[domain]
+x_min = -80.0
+x_max = 80.0
+cells = 160
+boundary = "absorbing"
+k_max = 1.5
+
+[numerics]
+coherence_length = 100.0
+sync_step = 2.0
+end_time = 8.0
+particles = 2000
+groups = 4
+seed = 1
+"#;
+
+fn stderr(o: &std::process::Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+/// Exit code 2, no panic, and every fragment of `expect` in the message.
+fn refused_with(o: &std::process::Output, expect: &[&str]) {
+    let err = stderr(o);
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "exit {:?}: {err}",
+        o.status.code()
+    );
+    assert!(!err.contains("panicked"), "a panic: {err}");
+    for e in expect {
+        assert!(err.contains(e), "the message should mention `{e}`:\n{err}");
+    }
+}
+
+fn last_line(s: &str) -> &str {
+    s.lines().last().unwrap_or("")
+}
+
+fn checkpoints(dir: &Path) -> Vec<String> {
+    let mut v: Vec<String> = std::fs::read_dir(dir)
+        .map(|d| {
+            d.filter_map(|e| e.ok())
+                .map(|e| e.file_name().to_string_lossy().into_owned())
+                .filter(|n| n.starts_with("checkpoint-") && !n.ends_with("-results.h5"))
+                .collect()
+        })
+        .unwrap_or_default();
+    v.sort();
+    v
+}
+
+/// `--until` at or before the current time stops resumably (a checkpoint at that time),
+/// says it stopped, and the run continues from there; a non-finite or negative `--until`
+/// is refused before anything is written.
+#[test]
+fn until_before_the_next_step_stops_resumably() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", JOB);
+    let j = job.to_str().unwrap();
+    for bad in ["nan", "-5", "inf"] {
+        let out = dir.path().join(format!("bad{bad}"));
+        let o = signfold(&["run", j, "--out", out.to_str().unwrap(), "--until", bad]);
+        refused_with(&o, &["--until"]);
+        assert!(
+            !out.join("observables.h5").exists(),
+            "--until {bad}: nothing written"
+        );
+    }
+    let out = dir.path().join("u0");
+    let o = out.to_str().unwrap();
+    let text = ok(&signfold(&["run", j, "--out", o, "--until", "0"]));
+    assert!(
+        last_line(&text).starts_with("signfold: stopped at t = 0 fs"),
+        "{text}"
+    );
+    assert!(!text.contains("signfold: finished"), "{text}");
+    assert_eq!(checkpoints(&out).len(), 1, "a checkpoint at t = 0");
+    // Continue to 6 fs, then ask for 3 fs: already past, so it stops where it stands.
+    let text = ok(&signfold(&["resume", o, "--until", "6"]));
+    assert!(
+        last_line(&text).starts_with("signfold: stopped at t = 6 fs"),
+        "{text}"
+    );
+    let text = ok(&signfold(&["resume", o, "--until", "3"]));
+    assert!(
+        last_line(&text).starts_with("signfold: stopped at t = 6 fs"),
+        "{text}"
+    );
+    assert!(!text.contains("wrote"), "{text}");
+    let o2 = signfold(&["resume", o, "--until", "-1"]);
+    refused_with(&o2, &["--until -1"]);
+    // And it finishes, saying so on the last line.
+    let text = ok(&signfold(&["resume", o]));
+    assert!(
+        last_line(&text).starts_with("signfold: finished at t = 8 fs"),
+        "{text}"
+    );
+    let r = signfold::io::results::ResultFile::read(&out.join("observables.h5")).unwrap();
+    assert_eq!(r.times(), &[0.0, 2.0, 4.0, 6.0, 8.0]);
+}
