@@ -126,3 +126,31 @@ fn until_before_the_next_step_stops_resumably() {
     let r = signfold::io::results::ResultFile::read(&out.join("observables.h5")).unwrap();
     assert_eq!(r.times(), &[0.0, 2.0, 4.0, 6.0, 8.0]);
 }
+
+/// `check` and `run` both refuse, naming the key, sizes that would allocate more than the
+/// machine holds (or leave error groups empty), before anything is written.
+#[test]
+fn sizes_that_allocate_are_refused_by_check_and_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let with_potential =
+        format!("{JOB}\n[[potential]]\nkind = \"barrier\"\nfrom = -1.5\nto = 1.5\nheight = 0.2\n");
+    let job = write_job(dir.path(), "job.toml", &with_potential);
+    let j = job.to_str().unwrap();
+    for (set, key) in [
+        ("output.x_bins=100000", "output.x_bins"),
+        ("output.k_bins=100000000", "output.k_bins"),
+        ("domain.cells=1000000000", "domain.cells"),
+        ("numerics.coherence_length=1e9", "numerics.coherence_length"),
+        ("numerics.groups=30000", "numerics.groups"),
+    ] {
+        let out = dir.path().join("out");
+        for args in [
+            vec!["check", j, "--set", set],
+            vec!["run", j, "--out", out.to_str().unwrap(), "--set", set],
+        ] {
+            let o = signfold(&args);
+            refused_with(&o, &[key, "job.toml"]);
+        }
+        assert!(!out.exists(), "{set}: nothing written");
+    }
+}
