@@ -154,3 +154,48 @@ fn sizes_that_allocate_are_refused_by_check_and_run() {
         assert!(!out.exists(), "{set}: nothing written");
     }
 }
+
+/// Inconsistent jobs and options are refused by `check` and `run` alike, naming the key or
+/// option: a sync step past the end, an orbital outside the domain or beyond k_max,
+/// zero threads, an impossible wall time, negative times and tolerances.
+#[test]
+fn inconsistent_jobs_and_options_are_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    for (from, to, key) in [
+        ("sync_step = 2.0", "sync_step = 10.0", "numerics.sync_step"),
+        ("centre = 20.0", "centre = 500.0", "orbital"),
+        ("wavevector = -0.4", "wavevector = -2.0", "wavevector"),
+    ] {
+        let job = write_job(dir.path(), "job.toml", &JOB.replace(from, to));
+        let out = dir.path().join("out");
+        for args in [
+            vec!["check", job.to_str().unwrap()],
+            vec!["run", job.to_str().unwrap(), "--out", out.to_str().unwrap()],
+        ] {
+            refused_with(&signfold(&args), &[key, "job.toml"]);
+        }
+        assert!(!out.exists(), "{to}: nothing written");
+    }
+    let job = write_job(dir.path(), "job.toml", JOB);
+    let j = job.to_str().unwrap();
+    let out = dir.path().join("out");
+    let o = out.to_str().unwrap();
+    for (extra, expect) in [
+        (["--threads", "0"], "--threads 0"),
+        (["--walltime", "99:99"], "--walltime 99:99"),
+        (["--walltime", "01:00:75"], "--walltime 01:00:75"),
+        (["--until", "-5"], "--until -5"),
+    ] {
+        let mut args = vec!["run", j, "--out", o];
+        args.extend_from_slice(&extra);
+        refused_with(&signfold(&args), &[expect]);
+        assert!(!out.exists(), "{extra:?}: nothing written");
+    }
+    ok(&signfold(&["run", j, "--out", o]));
+    let h5 = out.join("observables.h5");
+    let h5 = h5.to_str().unwrap();
+    refused_with(
+        &signfold(&["compare", h5, h5, "--tolerance", "-1"]),
+        &["--tolerance -1"],
+    );
+}

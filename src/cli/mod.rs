@@ -217,6 +217,9 @@ fn configure_threads(threads: Option<usize>, world: &World) -> anyhow::Result<()
     let cores = std::thread::available_parallelism()
         .map(|n| n.get())
         .unwrap_or(1);
+    if threads == Some(0) {
+        anyhow::bail!("--threads 0: at least 1 thread per rank is needed");
+    }
     let n = threads.unwrap_or((cores / local_ranks).max(1));
     rayon::ThreadPoolBuilder::new()
         .num_threads(n)
@@ -244,7 +247,7 @@ fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             walltime,
             threads,
         } => {
-            configure_threads(threads, world)?;
+            collective(configure_threads(threads, world))?;
             let opts = run::RunArgs {
                 job,
                 out,
@@ -261,7 +264,7 @@ fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             walltime,
             threads,
         } => {
-            configure_threads(threads, world)?;
+            collective(configure_threads(threads, world))?;
             run::resume(&dir, until, walltime, world)
         }
         _ => unreachable!("serial commands are dispatched by `serial`"),

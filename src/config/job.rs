@@ -432,6 +432,27 @@ pub fn validate(job: &Job) -> Result<()> {
         bail!("domain.cells: must be at least 4 (got {})", d.cells);
     }
     positive("domain.k_max", d.k_max)?;
+    for (i, o) in job.orbitals.iter().enumerate() {
+        let Orbital::Gaussian {
+            centre,
+            wavevector,
+            width,
+        } = *o;
+        // Beyond five widths a Gaussian holds less than 1e-6 of its norm.
+        if centre + 5.0 * width < d.x_min || centre - 5.0 * width > d.x_max {
+            bail!(
+                "orbital[{i}].centre: the orbital ({centre} ± 5 × {width} nm) lies wholly outside the domain [{}, {}] nm",
+                d.x_min,
+                d.x_max
+            );
+        }
+        if wavevector.abs() > d.k_max {
+            bail!(
+                "orbital[{i}].wavevector: |{wavevector}| 1/nm is beyond domain.k_max = {} 1/nm",
+                d.k_max
+            );
+        }
+    }
     for (i, p) in job.potentials.iter().enumerate() {
         let key = |k: &str| format!("potential[{i}].{k}");
         match p {
@@ -493,6 +514,13 @@ pub fn validate(job: &Job) -> Result<()> {
     }
     positive("numerics.sync_step", m.sync_step)?;
     positive("numerics.end_time", m.end_time)?;
+    if m.sync_step > m.end_time {
+        bail!(
+            "numerics.sync_step ({} fs) is longer than numerics.end_time ({} fs): the run would go past its end",
+            m.sync_step,
+            m.end_time
+        );
+    }
     if m.particles == 0 {
         bail!("numerics.particles: must be at least 1");
     }
