@@ -45,6 +45,7 @@ fn stderr(o: &std::process::Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()
 }
 
+#[track_caller]
 /// Exit code 2, no panic, and every fragment of `expect` in the message.
 fn refused_with(o: &std::process::Output, expect: &[&str]) {
     let err = stderr(o);
@@ -198,4 +199,73 @@ fn inconsistent_jobs_and_options_are_refused() {
         &signfold(&["compare", h5, h5, "--tolerance", "-1"]),
         &["--tolerance -1"],
     );
+}
+
+/// One run at a time in an output directory: a live holder's lock refuses `run` and
+/// `resume` (naming host and pid) and is left alone; a lock whose process is gone is
+/// replaced with a note; the lock is removed when the run ends.
+#[test]
+fn output_directory_is_locked() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", JOB);
+    let j = job.to_str().unwrap();
+    let out = dir.path().join("out");
+    let o = out.to_str().unwrap();
+    let lock = out.join("signfold.lock");
+    ok(&signfold(&["run", j, "--out", o, "--until", "4"]));
+    assert!(!lock.exists(), "the lock is removed at exit");
+    let host = signfold::runner::outdir::host_name();
+    // A live holder: this test process.
+    let live = format!("host={host}\npid={}\n", std::process::id());
+    std::fs::write(&lock, &live).unwrap();
+    let before = std::fs::read(out.join("observables.h5")).unwrap();
+    for args in [vec!["run", j, "--out", o, "--force"], vec!["resume", o]] {
+        let r = signfold(&args);
+        refused_with(
+            &r,
+            &["in use", &std::process::id().to_string(), "signfold.lock"],
+        );
+        assert_eq!(
+            std::fs::read_to_string(&lock).unwrap(),
+            live,
+            "lock untouched"
+        );
+    }
+    assert_eq!(std::fs::read(out.join("observables.h5")).unwrap(), before);
+    // A gone holder: a process that has exited.
+    let mut child = std::process::Command::new("true").spawn().unwrap();
+    let dead = child.id();
+    child.wait().unwrap();
+    std::fs::write(&lock, format!("host={host}\npid={dead}\n")).unwrap();
+    let r = signfold(&["resume", o]);
+    ok(&r);
+    assert!(stderr(&r).contains("stale lock"), "{}", stderr(&r));
+    assert!(!lock.exists());
+    // Two runs at once into one directory: the second is refused while the first works.
+    let slow = out.to_str().unwrap().to_string() + "-slow";
+    let mut first = std::process::Command::new(bin())
+        .args(["run", j, "--out", &slow, "--particles", "200000"])
+        .args([
+            "--set",
+            "numerics.end_time=100000",
+            "--set",
+            "domain.boundary=periodic",
+        ])
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    let slow_lock = Path::new(&slow).join("signfold.lock");
+    let t0 = std::time::Instant::now();
+    while !slow_lock.exists() && t0.elapsed().as_secs() < 60 {
+        std::thread::sleep(std::time::Duration::from_millis(10));
+    }
+    let second = signfold(&["run", j, "--out", &slow, "--force"]);
+    // SAFETY: signalling our own child (a clean stop with a checkpoint).
+    unsafe {
+        libc::kill(first.id() as i32, libc::SIGUSR1);
+    }
+    assert!(first.wait().unwrap().success());
+    refused_with(&second, &["in use", &first.id().to_string()]);
+    assert!(!slow_lock.exists(), "the lock is removed after a stop");
 }

@@ -14,7 +14,7 @@ use crate::io::results::ResultFile;
 use crate::physics::estimators::Counts;
 use crate::physics::flight;
 use crate::physics::numerics::Setup;
-use crate::runner::outdir::prepare_out;
+use crate::runner::outdir::{lock_dir, prepare_out};
 use crate::runner::progress::{Progress, Sink, StopReason};
 use crate::runner::records::{phase_table, record_run};
 use anyhow::{Result, bail};
@@ -49,8 +49,16 @@ pub fn run(
 ) -> Result<Ending> {
     let started = Instant::now();
     let root = comm.is_root();
+    let mut _lock = None;
     let prepared = if root {
         prepare_out(&opts.out, opts.force)
+            .and_then(|()| lock_dir(&opts.out))
+            .map(|(lock, note)| {
+                _lock = Some(lock);
+                if let Some(n) = note {
+                    progress(Progress::Warning(n));
+                }
+            })
     } else {
         Ok(())
     };
@@ -96,6 +104,18 @@ pub fn resume(
     progress: Sink,
 ) -> Result<Ending> {
     let started = Instant::now();
+    let mut _lock = None;
+    let locked = if comm.is_root() && dir.is_dir() {
+        lock_dir(dir).map(|(lock, note)| {
+            _lock = Some(lock);
+            if let Some(n) = note {
+                progress(Progress::Warning(n));
+            }
+        })
+    } else {
+        Ok(())
+    };
+    agree(comm, locked)?;
     let mut timers = Timers::default();
     let t0 = Instant::now();
     let restored = checkpoint::newest_valid(dir, comm)?;
