@@ -41,6 +41,24 @@ groups = 4
 seed = 1
 "#;
 
+/// Held while this test binary writes an HDF5 file and while it starts a child, so that
+/// no child inherits (and keeps locked) a file being written.
+static FILES: std::sync::Mutex<()> = std::sync::Mutex::new(());
+
+/// `signfold ARGS` (shadows the helper of `common`: spawned under [`FILES`]).
+fn signfold(args: &[&str]) -> std::process::Output {
+    let child = {
+        let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+        std::process::Command::new(bin())
+            .args(args)
+            .stdout(std::process::Stdio::piped())
+            .stderr(std::process::Stdio::piped())
+            .spawn()
+            .expect("the signfold binary runs")
+    };
+    child.wait_with_output().expect("signfold output")
+}
+
 fn stderr(o: &std::process::Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()
 }
@@ -268,4 +286,97 @@ fn output_directory_is_locked() {
     assert!(first.wait().unwrap().success());
     refused_with(&second, &["in use", &first.id().to_string()]);
     assert!(!slow_lock.exists(), "the lock is removed after a stop");
+}
+
+/// A synthetic pair of result files on 50 x bins at `times`: B exact (no errors, a current
+/// density that vanishes to rounding), A = B + se·z with known deviations z, errors from 8
+/// groups (its job says so). Returns Σz² and the count of density bins with an error.
+fn compare_pair(dir: &Path, times: &[f64], b_times: &[f64]) -> (f64, usize) {
+    use signfold::io::results::ResultFile;
+    let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+    let nx = 50;
+    let x: Vec<f64> = (0..nx).map(|i| -25.0 + i as f64 + 0.5).collect();
+    let k = vec![-1.0, 1.0];
+    let mc_job = JOB.replace("groups = 4", "groups = 8");
+    let mut fa = ResultFile::new("signfold-observables", &mc_job, x.clone(), k.clone());
+    let mut fb = ResultFile::new("signfold-reference", JOB, x.clone(), k.clone());
+    // Deterministic deviations in units of the error, a few standard deviations at most.
+    let z = |i: usize, t: usize| ((i * 7 + t * 13) % 11) as f64 / 5.0 - 1.0;
+    let (mut sum, mut bins) = (0.0, 0);
+    for (n, &t) in times.iter().enumerate() {
+        let exact: Vec<f64> = x.iter().map(|xi| (-0.02 * xi * xi).exp() / 12.5).collect();
+        let se: Vec<f64> = exact.iter().map(|v| 0.05 * v + 1e-4).collect();
+        let mc: Vec<f64> = (0..nx).map(|i| exact[i] + se[i] * z(i, n)).collect();
+        for i in 0..nx {
+            sum += z(i, n).powi(2);
+            bins += 1;
+        }
+        fa.push("time", "fs", &[], &[t]);
+        fa.push("density", "1/nm", &[nx], &mc);
+        fa.push("density_error", "1/nm", &[nx], &se);
+        let noise: Vec<f64> = (0..nx).map(|i| 1e-4 * z(i, n)).collect();
+        fa.push("current_density", "1/fs", &[nx], &noise);
+        fa.push("current_density_error", "1/fs", &[nx], &vec![1e-4; nx]);
+        fa.push("norm", "1", &[], &[1.0 + 0.003]);
+        fa.push("norm_error", "1", &[], &[0.001]);
+    }
+    for &t in b_times {
+        let exact: Vec<f64> = x.iter().map(|xi| (-0.02 * xi * xi).exp() / 12.5).collect();
+        fb.push("time", "fs", &[], &[t]);
+        fb.push("density", "1/nm", &[nx], &exact);
+        fb.push("current_density", "1/fs", &[nx], &vec![1e-18; nx]);
+        fb.push("norm", "1", &[], &[1.0]);
+    }
+    fa.write_atomic(&dir.join("a.h5")).unwrap();
+    fb.write_atomic(&dir.join("b.h5")).unwrap();
+    (sum, bins)
+}
+
+/// `compare` reports an absolute scale where the reference vanishes (no exploding relative
+/// distance), uses the `*_error` datasets (the mean F term with its expected value
+/// (b − 1)/(b − 3) and the bin count; a z-score for the norm), and refuses files that share
+/// fewer than two output times.
+#[test]
+fn compare_uses_errors_and_absolute_scales() {
+    let dir = tempfile::tempdir().unwrap();
+    let (sum, bins) = compare_pair(dir.path(), &[0.0, 5.0, 10.0], &[0.0, 5.0, 10.0]);
+    let (a, b) = (dir.path().join("a.h5"), dir.path().join("b.h5"));
+    let (a, b) = (a.to_str().unwrap(), b.to_str().unwrap());
+    let text = ok(&signfold(&["compare", a, b, "--tolerance", "0.5"]));
+    let row = |name: &str| -> Vec<String> {
+        text.lines()
+            .find(|l| l.split_whitespace().next() == Some(name))
+            .unwrap_or_else(|| panic!("no row for {name} in\n{text}"))
+            .split_whitespace()
+            .map(str::to_string)
+            .collect()
+    };
+    let cur = row("current_density");
+    assert_eq!(
+        cur[1], "—",
+        "no relative distance against a vanishing B: {text}"
+    );
+    assert_eq!(cur[3], "—", "{text}");
+    let max_abs: f64 = cur[4].parse().unwrap();
+    assert!((max_abs - 1e-4).abs() < 1e-8, "max |A−B| = 1e-4: {text}");
+    let den = row("density");
+    let f_mean: f64 = den[5].parse().unwrap();
+    assert!((f_mean - sum / bins as f64).abs() < 1e-3 * f_mean, "{text}");
+    assert_eq!(
+        den[6].parse::<f64>().unwrap(),
+        1.4,
+        "(8 − 1)/(8 − 3): {text}"
+    );
+    assert_eq!(den[7].parse::<usize>().unwrap(), bins, "{text}");
+    let norm = row("norm");
+    assert!(
+        (norm[1].parse::<f64>().unwrap() - 3.0).abs() < 1e-6,
+        "z = 0.003/0.001: {text}"
+    );
+    // Sharing only t = 0 is not a comparison.
+    let dir2 = tempfile::tempdir().unwrap();
+    compare_pair(dir2.path(), &[0.0, 5.0], &[0.0, 7.0]);
+    let (a2, b2) = (dir2.path().join("a.h5"), dir2.path().join("b.h5"));
+    let o = signfold(&["compare", a2.to_str().unwrap(), b2.to_str().unwrap()]);
+    refused_with(&o, &["1 common output time", "at least two"]);
 }
