@@ -380,3 +380,37 @@ fn compare_uses_errors_and_absolute_scales() {
     let o = signfold(&["compare", a2.to_str().unwrap(), b2.to_str().unwrap()]);
     refused_with(&o, &["1 common output time", "at least two"]);
 }
+
+/// Parse errors point at the line as written, also with `--set` overrides, and keys are
+/// spelled the way `--set` takes them (`potential.0.width`).
+#[test]
+fn errors_name_the_written_line_and_the_set_spelling() {
+    let dir = tempfile::tempdir().unwrap();
+    let with_potential = format!(
+        "{JOB}\n[[potential]]\nkind = \"gaussian\"\ncentre = 0.0\nwidth = -3.0\nheight = 0.1\n"
+    );
+    // JOB starts with an empty line: `mass` is on line 5, the first `width` on line 11.
+    let cases = [
+        (JOB.replace("mass = 0.067", "mas = 0.067"), "line 5", "mas"),
+        (
+            JOB.replacen("width = 5.0", "widht = 5.0", 1),
+            "line 11",
+            "widht",
+        ),
+    ];
+    for (text, line, key) in &cases {
+        let job = write_job(dir.path(), "job.toml", text);
+        for set in [&[][..], &["--set", "numerics.seed=3"][..]] {
+            let mut args = vec!["check", job.to_str().unwrap()];
+            args.extend_from_slice(set);
+            refused_with(&signfold(&args), &[line, key, "job.toml"]);
+        }
+    }
+    let job = write_job(dir.path(), "job.toml", &with_potential);
+    let j = job.to_str().unwrap();
+    refused_with(&signfold(&["check", j]), &["potential.0.width"]);
+    // The key as named works with --set.
+    ok(&signfold(&["check", j, "--set", "potential.0.width=3.0"]));
+    let o = signfold(&["check", j, "--set", "potential.0.widht=3.0"]);
+    refused_with(&o, &["--set", "widht"]);
+}
