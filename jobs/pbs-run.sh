@@ -17,7 +17,7 @@
 # minus MARGIN_MIN, so signfold stops at a synchronisation time with a checkpoint before
 # PBS ends the job.
 #
-# Completion: when signfold's log of this job has the line "signfold: wrote DIR/observables.h5 …"
+# Completion: when signfold's log of this job has the line "signfold: finished at … wrote DIR/observables.h5 …"
 # (printed only when the last step is done) the script writes DIR/signfold-finished and stops.
 # When it printed "signfold: stopped at … checkpoint written" and a newer checkpoint exists
 # than at the start of this job, the script resubmits itself. Anything else (an error, no
@@ -95,7 +95,7 @@ if (( RC != 0 )); then
     echo "signfold-run: signfold exited with status $RC; not resubmitting (see $LOG)" >&2
     exit "$RC"
 fi
-if grep -q '^signfold: wrote ' "$LOG"; then
+if grep -q '^signfold: finished at ' "$LOG"; then
     date >"$DIR/signfold-finished"
     echo "signfold-run: finished after $(( CHAIN + 1 )) job(s)"
     exit 0

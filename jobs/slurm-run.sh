@@ -18,7 +18,7 @@
 # checkpoints and stops at the next synchronisation time.
 #
 # Completion: when signfold's log of this allocation ends with the line
-# "signfold: wrote DIR/observables.h5 …" (printed only when the last step is done) the script
+# "signfold: finished at … wrote DIR/observables.h5 …" (printed only when the last step is done) the script
 # writes DIR/signfold-finished and stops. When it printed "signfold: stopped at … checkpoint
 # written" and a newer checkpoint exists than at the start of this allocation, the script
 # resubmits itself. Anything else (an error, no progress, MAX_CHAIN reached) stops the chain
@@ -109,7 +109,7 @@ if (( RC != 0 )); then
     echo "signfold-run: signfold exited with status $RC; not resubmitting (see $LOG)" >&2
     exit "$RC"
 fi
-if grep -q '^signfold: wrote ' "$LOG"; then
+if grep -q '^signfold: finished at ' "$LOG"; then
     date >"$DIR/signfold-finished"
     echo "signfold-run: finished after $(( CHAIN + 1 )) allocation(s)"
     exit 0

@@ -97,7 +97,7 @@ fn unknown_key_is_named() {
 #[test]
 fn negative_width_is_named() {
     let text = GOOD.replacen("width = 5.0", "width = -5.0", 1);
-    refused(&text, &["orbital[0].width", "greater than zero"]);
+    refused(&text, &["orbital.0.width", "greater than zero"]);
 }
 
 #[test]

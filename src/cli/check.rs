@@ -188,11 +188,11 @@ pub fn warnings(setup: &Setup) -> Vec<String> {
     }
     for (i, o) in setup.orbitals.iter().enumerate() {
         if o.x0 - 5.0 * o.sigma < setup.lo || o.x0 + 5.0 * o.sigma > setup.hi {
-            out.push(format!("orbital[{i}] reaches within 5 widths of the domain edge: part of its norm starts outside"));
+            out.push(format!("orbital.{i} reaches within 5 widths of the domain edge: part of its norm starts outside"));
         }
         if (o.k0.abs() + 5.0 / (2.0 * o.sigma)) > setup.k_max {
             out.push(format!(
-                "orbital[{i}] has momentum components within 5 widths of k_max: raise domain.k_max"
+                "orbital.{i} has momentum components within 5 widths of k_max: raise domain.k_max"
             ));
         }
     }

@@ -5,6 +5,11 @@ use std::path::Path;
 use std::process::ExitCode;
 
 pub fn command(a: &Path, b: &Path, tolerance: Option<f64>) -> anyhow::Result<ExitCode> {
+    if let Some(t) = tolerance
+        && !(t.is_finite() && t >= 0.0)
+    {
+        anyhow::bail!("--tolerance {t}: expected a finite number ≥ 0");
+    }
     let (text, ok) = signfold::analysis::compare::compare(a, b, tolerance)?;
     // A closed stdout (e.g. piped into `head`) is not an error of the comparison.
     let _ = write!(std::io::stdout(), "{text}");

@@ -58,7 +58,7 @@ pub enum Command {
         #[arg(long)]
         force: bool,
         /// Stop at the first synchronisation time ≥ T (fs).
-        #[arg(long, value_name = "T_FS")]
+        #[arg(long, value_name = "T_FS", allow_negative_numbers = true)]
         until: Option<f64>,
         /// Stop with a checkpoint before this much wall time has passed (HH:MM or HH:MM:SS).
         #[arg(long, value_name = "HH:MM")]
@@ -71,7 +71,7 @@ pub enum Command {
     Resume {
         dir: PathBuf,
         /// Stop again at the first synchronisation time ≥ T (fs).
-        #[arg(long, value_name = "T_FS")]
+        #[arg(long, value_name = "T_FS", allow_negative_numbers = true)]
         until: Option<f64>,
         #[arg(long, value_name = "HH:MM")]
         walltime: Option<String>,
@@ -99,7 +99,7 @@ pub enum Command {
         a: PathBuf,
         b: PathBuf,
         /// Exit 1 when a density distance exceeds X (relative L1).
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         tolerance: Option<f64>,
     },
     /// Write PNG pictures of a result file.
@@ -221,6 +221,9 @@ fn configure_threads(threads: Option<usize>, world: &World) -> anyhow::Result<()
     let cores = std::thread::available_parallelism()
         .map(|n| n.get())
         .unwrap_or(1);
+    if threads == Some(0) {
+        anyhow::bail!("--threads 0: at least 1 thread per rank is needed");
+    }
     let n = threads.unwrap_or((cores / local_ranks).max(1));
     rayon::ThreadPoolBuilder::new()
         .num_threads(n)
@@ -248,7 +251,7 @@ fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             walltime,
             threads,
         } => {
-            configure_threads(threads, world)?;
+            collective(configure_threads(threads, world))?;
             let opts = run::RunArgs {
                 job,
                 out,
@@ -265,7 +268,7 @@ fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             walltime,
             threads,
         } => {
-            configure_threads(threads, world)?;
+            collective(configure_threads(threads, world))?;
             run::resume(&dir, until, walltime, world)
         }
         _ => unreachable!("serial commands are dispatched by `serial`"),

@@ -20,7 +20,18 @@ pub struct RunArgs {
     pub walltime: Option<String>,
 }
 
+/// `--until T`: a finite time ≥ 0 fs.
+pub fn check_until(until: Option<f64>) -> anyhow::Result<()> {
+    match until {
+        Some(t) if !t.is_finite() || t < 0.0 => anyhow::bail!(
+            "--until {t}: expected a finite time ≥ 0 fs (the run stops with a checkpoint at the first synchronisation time ≥ T)"
+        ),
+        _ => Ok(()),
+    }
+}
+
 pub fn run(args: RunArgs, world: &World) -> anyhow::Result<ExitCode> {
+    collective(check_until(args.until))?;
     install_signals()?;
     let walltime = collective(args.walltime.as_deref().map(parse_walltime).transpose())?;
     let loaded = collective(signfold::physics::defaults::load(&args.job, &args.set))?;
@@ -41,6 +52,7 @@ pub fn resume(
     walltime: Option<String>,
     world: &World,
 ) -> anyhow::Result<ExitCode> {
+    collective(check_until(until))?;
     install_signals()?;
     let walltime = collective(walltime.as_deref().map(parse_walltime).transpose())?;
     collective(driver::resume(dir, until, walltime, world, &mut show))?;
@@ -104,11 +116,12 @@ fn show(p: Progress) {
             )
         }
         Progress::Finished {
+            time_fs,
             path,
             outputs,
             elapsed_s,
         } => println!(
-            "signfold: wrote {} ({outputs} outputs) in {}",
+            "signfold: finished at t = {time_fs} fs; wrote {} ({outputs} outputs) in {}",
             path.display(),
             hms(elapsed_s)
         ),

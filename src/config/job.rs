@@ -315,14 +315,20 @@ pub fn from_text(
         apply_override(&mut doc, o).with_context(|| format!("--set {o}"))?;
     }
     let effective = toml::to_string(&doc).expect("a TOML table always serialises");
-    // Parse the effective text again so that error messages carry its line numbers.
-    let job: Job = toml::from_str(&effective).map_err(|e| {
-        if overrides.is_empty() {
-            anyhow!("{origin}: {e}")
-        } else {
-            anyhow!("{origin} (after --set overrides): {e}")
-        }
-    })?;
+    // Messages carry the line numbers of the text as written: the re-serialised text
+    // orders keys differently, so its line numbers would point elsewhere.
+    let job: Job = if overrides.is_empty() {
+        toml::from_str(text).map_err(|e| anyhow!("{origin}: {}", locate(text, &e)))?
+    } else {
+        toml::from_str(&effective).map_err(|e| match toml::from_str::<Job>(text) {
+            Err(original) => anyhow!("{origin}: {}", locate(text, &original)),
+            Ok(_) => anyhow!(
+                "{origin} (after --set overrides {}): {}",
+                overrides.join(" "),
+                e.message()
+            ),
+        })?
+    };
     let loaded = LoadedJob {
         job,
         text: if overrides.is_empty() {
@@ -335,6 +341,44 @@ pub fn from_text(
     };
     validate(&loaded.job).map_err(|e| anyhow!("{origin}: {e}"))?;
     Ok(loaded)
+}
+
+/// The parser's message, pointed at the offending line. Inside a tagged table (an
+/// `[[orbital]]` or `[[potential]]`) the parser only knows the table's header line; an
+/// unknown key is then looked up in that table and its own line reported.
+fn locate(text: &str, e: &toml::de::Error) -> String {
+    let full = e.to_string();
+    let Some(span) = e.span() else {
+        return full;
+    };
+    let Some(name) = e
+        .message()
+        .strip_prefix("unknown field `")
+        .and_then(|r| r.split('`').next())
+    else {
+        return full;
+    };
+    let header = text[..span.start.min(text.len())].matches('\n').count();
+    let found = text
+        .lines()
+        .enumerate()
+        .skip(header)
+        .take_while(|(i, l)| *i == header || !l.trim_start().starts_with('['))
+        .find(|(_, l)| {
+            l.trim_start()
+                .strip_prefix(name)
+                .is_some_and(|r| r.trim_start().starts_with('='))
+        });
+    match found {
+        Some((i, line)) if i != header => format!(
+            "TOML parse error at line {}\n  |\n{} | {line}\n  |\n{} (in the table that starts at line {})",
+            i + 1,
+            i + 1,
+            e.message(),
+            header + 1
+        ),
+        _ => full,
+    }
 }
 
 /// Apply `a.b.c=value` (array elements as `potential.0.height=…`) to a TOML document. The
@@ -431,9 +475,9 @@ pub fn validate(job: &Job) -> Result<()> {
                 wavevector,
                 width,
             } => {
-                finite(&format!("orbital[{i}].centre"), *centre)?;
-                finite(&format!("orbital[{i}].wavevector"), *wavevector)?;
-                positive(&format!("orbital[{i}].width"), *width)?;
+                finite(&format!("orbital.{i}.centre"), *centre)?;
+                finite(&format!("orbital.{i}.wavevector"), *wavevector)?;
+                positive(&format!("orbital.{i}.width"), *width)?;
             }
         }
     }
@@ -453,8 +497,29 @@ pub fn validate(job: &Job) -> Result<()> {
     if !is_unset(d.k_max) {
         positive("domain.k_max", d.k_max)?;
     }
+    for (i, o) in job.orbitals.iter().enumerate() {
+        let Orbital::Gaussian {
+            centre,
+            wavevector,
+            width,
+        } = *o;
+        // Beyond five widths a Gaussian holds less than 1e-6 of its norm.
+        if centre + 5.0 * width < d.x_min || centre - 5.0 * width > d.x_max {
+            bail!(
+                "orbital.{i}.centre: the orbital ({centre} ± 5 × {width} nm) lies wholly outside the domain [{}, {}] nm",
+                d.x_min,
+                d.x_max
+            );
+        }
+        if wavevector.abs() > d.k_max {
+            bail!(
+                "orbital.{i}.wavevector: |{wavevector}| 1/nm is beyond domain.k_max = {} 1/nm",
+                d.k_max
+            );
+        }
+    }
     for (i, p) in job.potentials.iter().enumerate() {
-        let key = |k: &str| format!("potential[{i}].{k}");
+        let key = |k: &str| format!("potential.{i}.{k}");
         match p {
             PotentialTerm::Barrier {
                 from,
@@ -520,6 +585,13 @@ pub fn validate(job: &Job) -> Result<()> {
         positive("numerics.sync_step", m.sync_step)?;
     }
     positive("numerics.end_time", m.end_time)?;
+    if m.sync_step > m.end_time {
+        bail!(
+            "numerics.sync_step ({} fs) is longer than numerics.end_time ({} fs): the run would go past its end",
+            m.sync_step,
+            m.end_time
+        );
+    }
     if m.particles == 0 {
         bail!("numerics.particles: must be at least 1");
     }

@@ -37,6 +37,11 @@ pub fn stop_requested() -> bool {
 pub fn parse_walltime(s: &str) -> Result<std::time::Duration> {
     let parts: Vec<&str> = s.split(':').collect();
     let nums: Option<Vec<u64>> = parts.iter().map(|p| p.parse().ok()).collect();
+    if let Some(v) = &nums
+        && v.iter().skip(1).any(|&x| x >= 60)
+    {
+        bail!("--walltime {s}: minutes and seconds must be below 60");
+    }
     match (parts.len(), nums) {
         (2, Some(v)) => Ok(std::time::Duration::from_secs(v[0] * 3600 + v[1] * 60)),
         (3, Some(v)) => Ok(std::time::Duration::from_secs(

@@ -26,6 +26,10 @@ pub const CHECKPOINT_TYPE: &str = "signfold-checkpoint";
 pub const OBSERVABLES_FILE: &str = "observables.h5";
 pub const REFERENCE_FILE: &str = "reference.h5";
 pub const JOB_COPY_FILE: &str = "job.toml";
+/// Held by the run or resume working in the directory (holder's host, pid, start time).
+pub const LOCK_FILE: &str = "signfold.lock";
+/// Probe written and removed to test that a directory is writable.
+pub const PROBE_FILE: &str = ".signfold-write-probe";
 
 /// Root attributes of result files and checkpoints.
 pub const ATTR_FILE_TYPE: &str = "file_type";

@@ -104,7 +104,7 @@ impl NBodyWigner {
                     }
                     bail!(
                         "the Slater determinant vanishes (det S = {d:.3e}): fermion orbitals must be linearly \
-                         independent, but orbital[{}] and orbital[{}] overlap with |S| = {worst:.6} (identical \
+                         independent, but orbital.{} and orbital.{} overlap with |S| = {worst:.6} (identical \
                          fermions cannot occupy the same state)",
                         pair.0,
                         pair.1

@@ -78,6 +78,110 @@ pub fn machine_memory() -> f64 {
         .unwrap_or(8.0 * (1u64 << 30) as f64)
 }
 
+/// Fewest initial particles per error group: fewer leave groups without a net norm.
+pub const MIN_PARTICLES_PER_GROUP: u64 = 10;
+
+const GIB: f64 = (1u64 << 30) as f64;
+
+/// Bytes of the fixed structures of a rank (estimator histograms, the results kept by rank
+/// 0, kernel tables) that the job asks for, each with the keys that set it.
+pub fn fixed_sizes(
+    job: &Job,
+    one_body_kernel: bool,
+    pair: bool,
+    threads: usize,
+) -> Vec<(&'static str, String, f64)> {
+    let n = job.particles.count;
+    let g = job.numerics.groups as f64;
+    let (nx, nk) = (job.output.x_bins as f64, job.output.k_bins as f64);
+    let pair_bins = if n >= 2 { nx * nx } else { 0.0 };
+    // One histogram set per worker thread, the sum, and the global reduction's buffers.
+    let copies = threads.max(1) as f64 + 3.0;
+    let counts = copies * g * (8.0 * (nx + pair_bins + nx * nk + nk) + 16.0 * (nx + 5.0));
+    let outputs = {
+        let dt = job.numerics.sync_step;
+        let steps = ((job.numerics.end_time / dt) - 1e-9).ceil().max(1.0);
+        let every = (job.output.interval.unwrap_or(job.numerics.end_time / 20.0) / dt)
+            .round()
+            .max(1.0);
+        (steps / every).floor() + 2.0
+    };
+    // Value and standard error of every frame, kept in memory and rewritten at each output.
+    let results = 2.0 * outputs * 16.0 * (pair_bins + nx * nk + 2.0 * nx + nk + 8.0);
+    let lc = job.numerics.coherence_length;
+    let cap = (job.domain.k_max * lc / std::f64::consts::PI).floor();
+    let width = 2.0 * cap + 1.0;
+    let mesh_dx = (job.domain.x_max - job.domain.x_min) / job.domain.cells as f64;
+    let fft = (8.0 * cap + 8.0).max((4.0 * lc / mesh_dx).ceil()).max(64.0);
+    let fft = 2f64.powf(fft.log2().ceil());
+    // Per point: the row while building, the stored row, the alias sampler (~24 B per entry).
+    let table = |points: f64| points * width * 40.0 + threads.max(1) as f64 * fft * 32.0;
+    let cells = job.domain.cells as f64;
+    let mut v = vec![
+        (
+            "estimators",
+            format!(
+                "output.x_bins = {}, output.k_bins = {}, numerics.groups = {}: histograms",
+                job.output.x_bins, job.output.k_bins, job.numerics.groups
+            ),
+            counts,
+        ),
+        (
+            "results",
+            format!(
+                "output.x_bins = {}, output.k_bins = {}, {} outputs (numerics.end_time, output.interval): result frames",
+                job.output.x_bins, job.output.k_bins, outputs
+            ),
+            results,
+        ),
+    ];
+    let kernel_keys = format!(
+        "domain.cells = {}, numerics.coherence_length = {lc}, domain.k_max = {} (momentum cap K = {cap}, FFT of {fft} points)",
+        job.domain.cells, job.domain.k_max
+    );
+    if one_body_kernel {
+        v.push(("one-body kernel table", kernel_keys.clone(), table(cells)));
+    }
+    if pair && n >= 2 {
+        let points = if job.domain.boundary == Boundary::Periodic {
+            cells
+        } else {
+            2.0 * cells
+        };
+        v.push(("pair kernel table", kernel_keys, table(points)));
+    }
+    v
+}
+
+/// Refuse, before anything is allocated, a job whose fixed structures would not fit in
+/// half of this machine's memory, or whose error groups would be nearly empty.
+pub fn check_sizes(job: &Job, one_body_kernel: bool, pair: bool, threads: usize) -> Result<()> {
+    let (p, g) = (job.numerics.particles, job.numerics.groups as u64);
+    if p < MIN_PARTICLES_PER_GROUP * g {
+        return Err(anyhow!(
+            "numerics.particles = {p} is below {MIN_PARTICLES_PER_GROUP} per error group (numerics.groups = {g}): \
+             groups without particles have no net norm; raise numerics.particles or lower numerics.groups"
+        ));
+    }
+    let budget = 0.5 * machine_memory();
+    let sizes = fixed_sizes(job, one_body_kernel, pair, threads);
+    let total: f64 = sizes.iter().map(|s| s.2).sum();
+    if total > budget {
+        let (what, keys, bytes) = sizes
+            .iter()
+            .max_by(|a, b| a.2.total_cmp(&b.2))
+            .expect("at least the estimators");
+        return Err(anyhow!(
+            "{keys}: {what} of {:.3} GiB per rank ({:.3} GiB of fixed structures in all), more than half of \
+             this machine's memory ({:.1} GiB): lower these values",
+            bytes / GIB,
+            total / GIB,
+            budget / GIB
+        ));
+    }
+    Ok(())
+}
+
 impl Setup {
     pub fn new(loaded: &LoadedJob) -> Result<Self> {
         let job = loaded.job.clone();
@@ -93,6 +197,13 @@ impl Setup {
         // Fail early, naming the file, when the (anti)symmetrised state does not exist.
         NBodyWigner::new(&orbitals, job.particles.statistics)
             .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
+        check_sizes(
+            &job,
+            one_body.has_kernel(),
+            pair.is_some(),
+            rayon::current_num_threads(),
+        )
+        .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
         let lc = job.numerics.coherence_length;
         let rolloff = job.numerics.rolloff.unwrap_or(lc / 8.0);
         let dk = std::f64::consts::PI / lc;

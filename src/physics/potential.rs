@@ -152,7 +152,7 @@ impl OneBody {
                 PotentialTerm::Table { file } => {
                     let path = base_dir.join(file);
                     let (x, u) =
-                        read_table(&path).with_context(|| format!("potential[{i}].file"))?;
+                        read_table(&path).with_context(|| format!("potential.{i}.file"))?;
                     out.terms.push(Term::Table { x, u });
                 }
                 PotentialTerm::Field { slope } => out.force.slope += slope,

@@ -54,7 +54,7 @@ pub fn initial_state(job: &Job, axis: &Axis, shape: Shape) -> Result<(Vec<C>, Ve
             * axis.dx;
         if inside < 0.999 {
             warnings.push(format!(
-                "orbital[{a}] has only {:.4} of its norm inside the domain",
+                "orbital.{a} has only {:.4} of its norm inside the domain",
                 inside
             ));
         }

@@ -15,7 +15,7 @@ use crate::io::results::ResultFile;
 use crate::physics::estimators::Counts;
 use crate::physics::flight;
 use crate::physics::numerics::Setup;
-use crate::runner::outdir::prepare_out;
+use crate::runner::outdir::{lock_dir, prepare_out};
 use crate::runner::progress::{Progress, Sink, StopReason};
 use crate::runner::records::{phase_table, record_run};
 use anyhow::{Result, bail};
@@ -50,8 +50,16 @@ pub fn run(
 ) -> Result<Ending> {
     let started = Instant::now();
     let root = comm.is_root();
+    let mut _lock = None;
     let prepared = if root {
         prepare_out(&opts.out, opts.force)
+            .and_then(|()| lock_dir(&opts.out))
+            .map(|(lock, note)| {
+                _lock = Some(lock);
+                if let Some(n) = note {
+                    progress(Progress::Warning(n));
+                }
+            })
     } else {
         Ok(())
     };
@@ -97,6 +105,18 @@ pub fn resume(
     progress: Sink,
 ) -> Result<Ending> {
     let started = Instant::now();
+    let mut _lock = None;
+    let locked = if comm.is_root() && dir.is_dir() {
+        lock_dir(dir).map(|(lock, note)| {
+            _lock = Some(lock);
+            if let Some(n) = note {
+                progress(Progress::Warning(n));
+            }
+        })
+    } else {
+        Ok(())
+    };
+    agree(comm, locked)?;
     let mut timers = Timers::default();
     let t0 = Instant::now();
     let restored = checkpoint::newest_valid(dir, comm)?;
@@ -186,6 +206,34 @@ fn drive(
     }
     .min(setup.steps);
     let ck = &setup.job.checkpoint;
+    if opts.until.is_some() && stop_step <= st.step && st.step < setup.steps {
+        // --until at or before the current time: stop here, resumable. A fresh run writes
+        // its checkpoint now; a resumed one already stands on the checkpoint it read.
+        if fresh {
+            let t0 = Instant::now();
+            checkpoint::write(
+                &opts.out,
+                &st,
+                &out,
+                loaded,
+                st.step as f64 * setup.dt,
+                ck.keep,
+                comm,
+            )?;
+            timers.add(Phase::Checkpoint, t0);
+        }
+        if let Some(rows) = phase_table(&timers, started, comm) {
+            progress(Progress::Phases(rows));
+        }
+        if root {
+            progress(Progress::Stopped {
+                time_fs: st.step as f64 * setup.dt,
+                why: StopReason::Until,
+                dir: opts.out.clone(),
+            });
+        }
+        return Ok(Ending::Checkpointed);
+    }
     let every_steps = ck.every.map(|t| ((t / setup.dt).round() as u64).max(1));
     let mut last_checkpoint = Instant::now();
     let mut longest_checkpoint: f64 = (setup.checkpoint_bytes() / 50e6 / comm.size() as f64) + 2.0;
@@ -345,6 +393,9 @@ fn drive(
             last_checkpoint = Instant::now();
             timers.add(Phase::Checkpoint, t0);
             if signal || out_of_time || until {
+                if let Some(rows) = phase_table(&timers, started, comm) {
+                    progress(Progress::Phases(rows));
+                }
                 if root {
                     let why = if signal {
                         StopReason::Signal
@@ -358,9 +409,6 @@ fn drive(
                         why,
                         dir: opts.out.clone(),
                     });
-                }
-                if let Some(rows) = phase_table(&timers, started, comm) {
-                    progress(Progress::Phases(rows));
                 }
                 return Ok(Ending::Checkpointed);
             }
@@ -398,15 +446,17 @@ fn drive(
             });
         }
     }
+    // The last line says how the run ended (batch scripts look for it).
+    if let Some(rows) = phase_table(&timers, started, comm) {
+        progress(Progress::Phases(rows));
+    }
     if root {
         progress(Progress::Finished {
+            time_fs: st.step as f64 * setup.dt,
             path: obs_path.clone(),
             outputs: out.times().len(),
             elapsed_s: started.elapsed().as_secs_f64(),
         });
-    }
-    if let Some(rows) = phase_table(&timers, started, comm) {
-        progress(Progress::Phases(rows));
     }
     Ok(Ending::Finished)
 }

@@ -53,6 +53,8 @@ pub enum Progress {
     },
     /// The run reached its end time.
     Finished {
+        /// The end time reached (fs).
+        time_fs: f64,
         path: PathBuf,
         outputs: usize,
         elapsed_s: f64,

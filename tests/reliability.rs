@@ -1,0 +1,416 @@
+//! Defects a tester found in stopping, validation, locking and comparing: each test
+//! states the contract that was broken.
+
+mod common;
+
+use common::*;
+use std::path::Path;
+
+/// A small free fermion pair: 2 fs sync steps to 8 fs, a second on one core.
+const JOB: &str = r#"
+[particles]
+count = 2
+statistics = "fermion"
+mass = 0.067
+
+[[orbital]]
+kind = "gaussian"
+centre = -20.0
+wavevector = 0.4
+width = 5.0
+
+[[orbital]]
+kind = "gaussian"
+centre = 20.0
+wavevector = -0.4
+width = 5.0
+
+[domain]
+x_min = -80.0
+x_max = 80.0
+cells = 160
+boundary = "absorbing"
+k_max = 1.5
+
+[numerics]
+coherence_length = 100.0
+sync_step = 2.0
+end_time = 8.0
+particles = 2000
+groups = 4
+seed = 1
+"#;
+
+/// Held while this test binary writes an HDF5 file and while it starts a child, so that
+/// no child inherits (and keeps locked) a file being written.
+static FILES: std::sync::Mutex<()> = std::sync::Mutex::new(());
+
+/// `signfold ARGS` (shadows the helper of `common`: spawned under [`FILES`]).
+fn signfold(args: &[&str]) -> std::process::Output {
+    let child = {
+        let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+        std::process::Command::new(bin())
+            .args(args)
+            .stdout(std::process::Stdio::piped())
+            .stderr(std::process::Stdio::piped())
+            .spawn()
+            .expect("the signfold binary runs")
+    };
+    child.wait_with_output().expect("signfold output")
+}
+
+fn stderr(o: &std::process::Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+#[track_caller]
+/// Exit code 2, no panic, and every fragment of `expect` in the message.
+fn refused_with(o: &std::process::Output, expect: &[&str]) {
+    let err = stderr(o);
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "exit {:?}: {err}",
+        o.status.code()
+    );
+    assert!(!err.contains("panicked"), "a panic: {err}");
+    for e in expect {
+        assert!(err.contains(e), "the message should mention `{e}`:\n{err}");
+    }
+}
+
+fn last_line(s: &str) -> &str {
+    s.lines().last().unwrap_or("")
+}
+
+fn checkpoints(dir: &Path) -> Vec<String> {
+    let mut v: Vec<String> = std::fs::read_dir(dir)
+        .map(|d| {
+            d.filter_map(|e| e.ok())
+                .map(|e| e.file_name().to_string_lossy().into_owned())
+                .filter(|n| n.starts_with("checkpoint-") && !n.ends_with("-results.h5"))
+                .collect()
+        })
+        .unwrap_or_default();
+    v.sort();
+    v
+}
+
+/// `--until` at or before the current time stops resumably (a checkpoint at that time),
+/// says it stopped, and the run continues from there; a non-finite or negative `--until`
+/// is refused before anything is written.
+#[test]
+fn until_before_the_next_step_stops_resumably() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", JOB);
+    let j = job.to_str().unwrap();
+    for bad in ["nan", "-5", "inf"] {
+        let out = dir.path().join(format!("bad{bad}"));
+        let o = signfold(&["run", j, "--out", out.to_str().unwrap(), "--until", bad]);
+        refused_with(&o, &["--until"]);
+        assert!(
+            !out.join("observables.h5").exists(),
+            "--until {bad}: nothing written"
+        );
+    }
+    let out = dir.path().join("u0");
+    let o = out.to_str().unwrap();
+    let text = ok(&signfold(&["run", j, "--out", o, "--until", "0"]));
+    assert!(
+        last_line(&text).starts_with("signfold: stopped at t = 0 fs"),
+        "{text}"
+    );
+    assert!(!text.contains("signfold: finished"), "{text}");
+    assert_eq!(checkpoints(&out).len(), 1, "a checkpoint at t = 0");
+    // Continue to 6 fs, then ask for 3 fs: already past, so it stops where it stands.
+    let text = ok(&signfold(&["resume", o, "--until", "6"]));
+    assert!(
+        last_line(&text).starts_with("signfold: stopped at t = 6 fs"),
+        "{text}"
+    );
+    let text = ok(&signfold(&["resume", o, "--until", "3"]));
+    assert!(
+        last_line(&text).starts_with("signfold: stopped at t = 6 fs"),
+        "{text}"
+    );
+    assert!(!text.contains("wrote"), "{text}");
+    let o2 = signfold(&["resume", o, "--until", "-1"]);
+    refused_with(&o2, &["--until -1"]);
+    // And it finishes, saying so on the last line.
+    let text = ok(&signfold(&["resume", o]));
+    assert!(
+        last_line(&text).starts_with("signfold: finished at t = 8 fs"),
+        "{text}"
+    );
+    let r = signfold::io::results::ResultFile::read(&out.join("observables.h5")).unwrap();
+    assert_eq!(r.times(), &[0.0, 2.0, 4.0, 6.0, 8.0]);
+}
+
+/// `check` and `run` both refuse, naming the key, sizes that would allocate more than the
+/// machine holds (or leave error groups empty), before anything is written.
+#[test]
+fn sizes_that_allocate_are_refused_by_check_and_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let with_potential =
+        format!("{JOB}\n[[potential]]\nkind = \"barrier\"\nfrom = -1.5\nto = 1.5\nheight = 0.2\n");
+    let job = write_job(dir.path(), "job.toml", &with_potential);
+    let j = job.to_str().unwrap();
+    for (set, key) in [
+        ("output.x_bins=100000", "output.x_bins"),
+        ("output.k_bins=100000000", "output.k_bins"),
+        ("domain.cells=1000000000", "domain.cells"),
+        ("numerics.coherence_length=1e9", "numerics.coherence_length"),
+        ("numerics.groups=30000", "numerics.groups"),
+    ] {
+        let out = dir.path().join("out");
+        for args in [
+            vec!["check", j, "--set", set],
+            vec!["run", j, "--out", out.to_str().unwrap(), "--set", set],
+        ] {
+            let o = signfold(&args);
+            refused_with(&o, &[key, "job.toml"]);
+        }
+        assert!(!out.exists(), "{set}: nothing written");
+    }
+}
+
+/// Inconsistent jobs and options are refused by `check` and `run` alike, naming the key or
+/// option: a sync step past the end, an orbital outside the domain or beyond k_max,
+/// zero threads, an impossible wall time, negative times and tolerances.
+#[test]
+fn inconsistent_jobs_and_options_are_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    for (from, to, key) in [
+        ("sync_step = 2.0", "sync_step = 10.0", "numerics.sync_step"),
+        ("centre = 20.0", "centre = 500.0", "orbital"),
+        ("wavevector = -0.4", "wavevector = -2.0", "wavevector"),
+    ] {
+        let job = write_job(dir.path(), "job.toml", &JOB.replace(from, to));
+        let out = dir.path().join("out");
+        for args in [
+            vec!["check", job.to_str().unwrap()],
+            vec!["run", job.to_str().unwrap(), "--out", out.to_str().unwrap()],
+        ] {
+            refused_with(&signfold(&args), &[key, "job.toml"]);
+        }
+        assert!(!out.exists(), "{to}: nothing written");
+    }
+    let job = write_job(dir.path(), "job.toml", JOB);
+    let j = job.to_str().unwrap();
+    let out = dir.path().join("out");
+    let o = out.to_str().unwrap();
+    for (extra, expect) in [
+        (["--threads", "0"], "--threads 0"),
+        (["--walltime", "99:99"], "--walltime 99:99"),
+        (["--walltime", "01:00:75"], "--walltime 01:00:75"),
+        (["--until", "-5"], "--until -5"),
+    ] {
+        let mut args = vec!["run", j, "--out", o];
+        args.extend_from_slice(&extra);
+        refused_with(&signfold(&args), &[expect]);
+        assert!(!out.exists(), "{extra:?}: nothing written");
+    }
+    ok(&signfold(&["run", j, "--out", o]));
+    let h5 = out.join("observables.h5");
+    let h5 = h5.to_str().unwrap();
+    refused_with(
+        &signfold(&["compare", h5, h5, "--tolerance", "-1"]),
+        &["--tolerance -1"],
+    );
+}
+
+/// One run at a time in an output directory: a live holder's lock refuses `run` and
+/// `resume` (naming host and pid) and is left alone; a lock whose process is gone is
+/// replaced with a note; the lock is removed when the run ends.
+#[test]
+fn output_directory_is_locked() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", JOB);
+    let j = job.to_str().unwrap();
+    let out = dir.path().join("out");
+    let o = out.to_str().unwrap();
+    let lock = out.join("signfold.lock");
+    ok(&signfold(&["run", j, "--out", o, "--until", "4"]));
+    assert!(!lock.exists(), "the lock is removed at exit");
+    let host = signfold::runner::outdir::host_name();
+    // A live holder: this test process.
+    let live = format!("host={host}\npid={}\n", std::process::id());
+    std::fs::write(&lock, &live).unwrap();
+    let before = std::fs::read(out.join("observables.h5")).unwrap();
+    for args in [vec!["run", j, "--out", o, "--force"], vec!["resume", o]] {
+        let r = signfold(&args);
+        refused_with(
+            &r,
+            &["in use", &std::process::id().to_string(), "signfold.lock"],
+        );
+        assert_eq!(
+            std::fs::read_to_string(&lock).unwrap(),
+            live,
+            "lock untouched"
+        );
+    }
+    assert_eq!(std::fs::read(out.join("observables.h5")).unwrap(), before);
+    // A gone holder: a process that has exited.
+    let mut child = std::process::Command::new("true").spawn().unwrap();
+    let dead = child.id();
+    child.wait().unwrap();
+    std::fs::write(&lock, format!("host={host}\npid={dead}\n")).unwrap();
+    let r = signfold(&["resume", o]);
+    ok(&r);
+    assert!(stderr(&r).contains("stale lock"), "{}", stderr(&r));
+    assert!(!lock.exists());
+    // Two runs at once into one directory: the second is refused while the first works.
+    let slow = out.to_str().unwrap().to_string() + "-slow";
+    let mut first = std::process::Command::new(bin())
+        .args(["run", j, "--out", &slow, "--particles", "200000"])
+        .args([
+            "--set",
+            "numerics.end_time=100000",
+            "--set",
+            "domain.boundary=periodic",
+        ])
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::null())
+        .spawn()
+        .unwrap();
+    let slow_lock = Path::new(&slow).join("signfold.lock");
+    let t0 = std::time::Instant::now();
+    while !slow_lock.exists() && t0.elapsed().as_secs() < 60 {
+        std::thread::sleep(std::time::Duration::from_millis(10));
+    }
+    let second = signfold(&["run", j, "--out", &slow, "--force"]);
+    // SAFETY: signalling our own child (a clean stop with a checkpoint).
+    unsafe {
+        libc::kill(first.id() as i32, libc::SIGUSR1);
+    }
+    assert!(first.wait().unwrap().success());
+    refused_with(&second, &["in use", &first.id().to_string()]);
+    assert!(!slow_lock.exists(), "the lock is removed after a stop");
+}
+
+/// A synthetic pair of result files on 50 x bins at `times`: B exact (no errors, a current
+/// density that vanishes to rounding), A = B + se·z with known deviations z, errors from 8
+/// groups (its job says so). Returns Σz² and the count of density bins with an error.
+fn compare_pair(dir: &Path, times: &[f64], b_times: &[f64]) -> (f64, usize) {
+    use signfold::io::results::ResultFile;
+    let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+    let nx = 50;
+    let x: Vec<f64> = (0..nx).map(|i| -25.0 + i as f64 + 0.5).collect();
+    let k = vec![-1.0, 1.0];
+    let mc_job = JOB.replace("groups = 4", "groups = 8");
+    let mut fa = ResultFile::new("signfold-observables", &mc_job, x.clone(), k.clone());
+    let mut fb = ResultFile::new("signfold-reference", JOB, x.clone(), k.clone());
+    // Deterministic deviations in units of the error, a few standard deviations at most.
+    let z = |i: usize, t: usize| ((i * 7 + t * 13) % 11) as f64 / 5.0 - 1.0;
+    let (mut sum, mut bins) = (0.0, 0);
+    for (n, &t) in times.iter().enumerate() {
+        let exact: Vec<f64> = x.iter().map(|xi| (-0.02 * xi * xi).exp() / 12.5).collect();
+        let se: Vec<f64> = exact.iter().map(|v| 0.05 * v + 1e-4).collect();
+        let mc: Vec<f64> = (0..nx).map(|i| exact[i] + se[i] * z(i, n)).collect();
+        for i in 0..nx {
+            sum += z(i, n).powi(2);
+            bins += 1;
+        }
+        fa.push("time", "fs", &[], &[t]);
+        fa.push("density", "1/nm", &[nx], &mc);
+        fa.push("density_error", "1/nm", &[nx], &se);
+        let noise: Vec<f64> = (0..nx).map(|i| 1e-4 * z(i, n)).collect();
+        fa.push("current_density", "1/fs", &[nx], &noise);
+        fa.push("current_density_error", "1/fs", &[nx], &vec![1e-4; nx]);
+        fa.push("norm", "1", &[], &[1.0 + 0.003]);
+        fa.push("norm_error", "1", &[], &[0.001]);
+    }
+    for &t in b_times {
+        let exact: Vec<f64> = x.iter().map(|xi| (-0.02 * xi * xi).exp() / 12.5).collect();
+        fb.push("time", "fs", &[], &[t]);
+        fb.push("density", "1/nm", &[nx], &exact);
+        fb.push("current_density", "1/fs", &[nx], &vec![1e-18; nx]);
+        fb.push("norm", "1", &[], &[1.0]);
+    }
+    fa.write_atomic(&dir.join("a.h5")).unwrap();
+    fb.write_atomic(&dir.join("b.h5")).unwrap();
+    (sum, bins)
+}
+
+/// `compare` reports an absolute scale where the reference vanishes (no exploding relative
+/// distance), uses the `*_error` datasets (the mean F term with its expected value
+/// (b − 1)/(b − 3) and the bin count; a z-score for the norm), and refuses files that share
+/// fewer than two output times.
+#[test]
+fn compare_uses_errors_and_absolute_scales() {
+    let dir = tempfile::tempdir().unwrap();
+    let (sum, bins) = compare_pair(dir.path(), &[0.0, 5.0, 10.0], &[0.0, 5.0, 10.0]);
+    let (a, b) = (dir.path().join("a.h5"), dir.path().join("b.h5"));
+    let (a, b) = (a.to_str().unwrap(), b.to_str().unwrap());
+    let text = ok(&signfold(&["compare", a, b, "--tolerance", "0.5"]));
+    let row = |name: &str| -> Vec<String> {
+        text.lines()
+            .find(|l| l.split_whitespace().next() == Some(name))
+            .unwrap_or_else(|| panic!("no row for {name} in\n{text}"))
+            .split_whitespace()
+            .map(str::to_string)
+            .collect()
+    };
+    let cur = row("current_density");
+    assert_eq!(
+        cur[1], "—",
+        "no relative distance against a vanishing B: {text}"
+    );
+    assert_eq!(cur[3], "—", "{text}");
+    let max_abs: f64 = cur[4].parse().unwrap();
+    assert!((max_abs - 1e-4).abs() < 1e-8, "max |A−B| = 1e-4: {text}");
+    let den = row("density");
+    let f_mean: f64 = den[5].parse().unwrap();
+    assert!((f_mean - sum / bins as f64).abs() < 1e-3 * f_mean, "{text}");
+    assert_eq!(
+        den[6].parse::<f64>().unwrap(),
+        1.4,
+        "(8 − 1)/(8 − 3): {text}"
+    );
+    assert_eq!(den[7].parse::<usize>().unwrap(), bins, "{text}");
+    let norm = row("norm");
+    assert!(
+        (norm[1].parse::<f64>().unwrap() - 3.0).abs() < 1e-6,
+        "z = 0.003/0.001: {text}"
+    );
+    // Sharing only t = 0 is not a comparison.
+    let dir2 = tempfile::tempdir().unwrap();
+    compare_pair(dir2.path(), &[0.0, 5.0], &[0.0, 7.0]);
+    let (a2, b2) = (dir2.path().join("a.h5"), dir2.path().join("b.h5"));
+    let o = signfold(&["compare", a2.to_str().unwrap(), b2.to_str().unwrap()]);
+    refused_with(&o, &["1 common output time", "at least two"]);
+}
+
+/// Parse errors point at the line as written, also with `--set` overrides, and keys are
+/// spelled the way `--set` takes them (`potential.0.width`).
+#[test]
+fn errors_name_the_written_line_and_the_set_spelling() {
+    let dir = tempfile::tempdir().unwrap();
+    let with_potential = format!(
+        "{JOB}\n[[potential]]\nkind = \"gaussian\"\ncentre = 0.0\nwidth = -3.0\nheight = 0.1\n"
+    );
+    // JOB starts with an empty line: `mass` is on line 5, the first `width` on line 11.
+    let cases = [
+        (JOB.replace("mass = 0.067", "mas = 0.067"), "line 5", "mas"),
+        (
+            JOB.replacen("width = 5.0", "widht = 5.0", 1),
+            "line 11",
+            "widht",
+        ),
+    ];
+    for (text, line, key) in &cases {
+        let job = write_job(dir.path(), "job.toml", text);
+        for set in [&[][..], &["--set", "numerics.seed=3"][..]] {
+            let mut args = vec!["check", job.to_str().unwrap()];
+            args.extend_from_slice(set);
+            refused_with(&signfold(&args), &[line, key, "job.toml"]);
+        }
+    }
+    let job = write_job(dir.path(), "job.toml", &with_potential);
+    let j = job.to_str().unwrap();
+    refused_with(&signfold(&["check", j]), &["potential.0.width"]);
+    // The key as named works with --set.
+    ok(&signfold(&["check", j, "--set", "potential.0.width=3.0"]));
+    let o = signfold(&["check", j, "--set", "potential.0.widht=3.0"]);
+    refused_with(&o, &["--set", "widht"]);
+}
