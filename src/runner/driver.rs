@@ -156,6 +156,8 @@ fn drive(
 ) -> Result<Ending> {
     let root = comm.is_root();
     let mesh = CellMesh::new(setup)?;
+    // Annihilation buffers, kept from one pass to the next.
+    let mut annihilator = annihilate::Annihilator::default();
     let obs_path = opts.out.join(names::OBSERVABLES_FILE);
     let observe = |st: &State, out: &mut ResultFile, timers: &mut Timers| {
         let t0 = Instant::now();
@@ -219,7 +221,7 @@ fn drive(
         timers.add(Phase::Bookkeeping, t0);
         if count > threshold {
             let t0 = Instant::now();
-            let rep = annihilate::annihilate(setup, &mesh, &mut st.store, st.step, comm);
+            let rep = annihilator.run(setup, &mesh, &mut st.store, st.step, comm);
             timers.add_secs(Phase::Binning, rep.binning_s);
             timers.add_secs(Phase::Reduction, rep.reduction_s);
             // The rest of the call (the global before/after counts, which also absorb the
