@@ -150,7 +150,8 @@ pub struct Annihilation {
     pub cell_x: Option<f64>,
     /// Cell size in k, 1/nm (default Δk/2).
     pub cell_k: Option<f64>,
-    /// Annihilate when the global particle count exceeds trigger × the initial count.
+    /// Annihilate when the global particle count exceeds trigger × the larger of the initial
+    /// count and the count right after the latest annihilation.
     #[serde(default = "default_trigger")]
     pub trigger: f64,
     #[serde(default)]

@@ -179,7 +179,6 @@ fn drive(
         agree(comm, written)?;
         timers.add(Phase::Output, t0);
     }
-    let threshold = (setup.trigger * st.initial_count as f64) as u64;
     let stop_step = match opts.until {
         Some(t) => ((t / setup.dt) - 1e-9).ceil().max(0.0) as u64,
         None => setup.steps,
@@ -219,7 +218,10 @@ fn drive(
         events += t[3 * g] as u64;
         let count = t[3 * g + 1] as u64;
         timers.add(Phase::Bookkeeping, t0);
-        if count > threshold {
+        // Annihilate when the global count has grown by the trigger factor since the latest
+        // annihilation (or since t = 0, whichever count is larger): docs/method.md §3.
+        let reference = st.initial_count.max(st.count_after_annihilation);
+        if count > (setup.trigger * reference as f64) as u64 {
             let t0 = Instant::now();
             let rep = annihilator.run(setup, &mesh, &mut st.store, st.step, comm);
             timers.add_secs(Phase::Binning, rep.binning_s);
@@ -238,6 +240,7 @@ fn drive(
                 rep.selection_s + t0.elapsed().as_secs_f64(),
             );
             st.annihilations += 1;
+            st.count_after_annihilation = rep.after;
             bytes_sent.push(8.0 * (rep.words_sent + moved) as f64);
             cells.push(rep.local_cells as f64);
             if root {
