@@ -497,10 +497,9 @@ pub fn validate(job: &Job) -> Result<()> {
     if m.particles == 0 {
         bail!("numerics.particles: must be at least 1");
     }
-    if m.groups < 2 {
+    if m.groups < 1 {
         bail!(
-            "numerics.groups: at least 2 independent sub-ensembles are needed for error bars (got {})",
-            m.groups
+            "numerics.groups: at least 1 (got 0); 1 gives no error bars (`_error` datasets hold NaN), 2 or more do"
         );
     }
     if m.groups > 1 << 15 {
