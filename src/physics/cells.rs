@@ -93,7 +93,14 @@ impl CellMesh {
             cells[i] = (ix << self.bits_k) | ik;
         }
         if self.sort {
-            cells.sort_unstable();
+            if n == 2 {
+                // Two cells (the common pair): one comparison.
+                if cells[0] > cells[1] {
+                    cells.swap(0, 1);
+                }
+            } else {
+                cells.sort_unstable();
+            }
         }
         let mut key: u128 = rng::group_of(id) as u128;
         for &c in cells.iter() {
