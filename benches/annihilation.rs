@@ -1,23 +1,34 @@
-//! Annihilation of a store of 10⁷ N = 2 particles (keys, sort, reduction, selection,
-//! compaction) with the single-rank `Solo` comm, beside a `sort_unstable` of as many random
-//! 64-bit keys (the baseline). Both run on one core (a one-thread rayon pool).
+//! Annihilation of a store of 10⁷ N = 2 particles (cell counts, reduction, selection,
+//! compaction) beside a `sort_unstable` of as many random 64-bit keys (the baseline), all
+//! on one core (a one-thread global rayon pool; pin the process with `taskset -c 1`).
+//!
+//! Cases:
+//! - `sort-u64`: the baseline;
+//! - `annihilate`: what a run does — an [`Annihilator`] kept from call to call (the
+//!   driver's), through MPI's `World` (one rank, MPI initialised as a singleton) when MPI
+//!   starts, else through `Solo`;
+//! - `annihilate-fresh`: the same with fresh buffers every call (`annihilate`, `Solo`).
 //!
 //! The store is that of jobs/fermion-pair-coulomb.toml (relative cells, exchange-merged)
 //! after a few intervals of advance without annihilation, so that the signed initial state
 //! and the children of generation events share cells of both signs. After criterion's own
-//! report, both cases run again in interleaved rounds (the machine is shared and noisy);
-//! those medians and the ratio go to `scaling-results/bench-annihilation.csv`. `SIGNFOLD_BENCH_PARTICLES` sets the
-//! store size (default 10⁷).
+//! report, the cases run again in interleaved rounds (the machine is shared and noisy);
+//! those medians and the ratios go to `scaling-results/bench-annihilation.csv`, with the
+//! heap allocations of one call (a counting global allocator, this thread only).
+//! `SIGNFOLD_BENCH_PARTICLES` sets the store size (default 10⁷).
 
 mod support;
 
 use criterion::BenchmarkId;
 use rand::{Rng, SeedableRng};
-use signfold::engine::annihilate::{CellMesh, annihilate};
-use signfold::engine::comm::Solo;
+use signfold::engine::annihilate::{Annihilator, CellMesh, annihilate};
+use signfold::engine::comm::{Comm, Solo};
+use signfold::engine::mpi::World;
 use signfold::engine::start;
 use signfold::physics::flight::advance;
 use signfold::physics::rng::Stream;
+use std::alloc::{GlobalAlloc, Layout, System};
+use std::cell::Cell;
 use std::hint::black_box;
 use std::time::{Duration, Instant};
 
@@ -26,11 +37,60 @@ const INTERVALS: u64 = 4;
 /// Interleaved rounds behind the CSV summary.
 const ROUNDS: usize = 7;
 
+/// The system allocator, counting the allocations (and reallocations) of each thread.
+struct Counting;
+
+thread_local! {
+    static ALLOCATIONS: Cell<u64> = const { Cell::new(0) };
+}
+
+fn bump() {
+    let _ = ALLOCATIONS.try_with(|c| c.set(c.get() + 1));
+}
+
+fn allocations() -> u64 {
+    ALLOCATIONS.with(|c| c.get())
+}
+
+unsafe impl GlobalAlloc for Counting {
+    unsafe fn alloc(&self, layout: Layout) -> *mut u8 {
+        bump();
+        unsafe { System.alloc(layout) }
+    }
+    unsafe fn alloc_zeroed(&self, layout: Layout) -> *mut u8 {
+        bump();
+        unsafe { System.alloc_zeroed(layout) }
+    }
+    unsafe fn realloc(&self, ptr: *mut u8, layout: Layout, new_size: usize) -> *mut u8 {
+        bump();
+        unsafe { System.realloc(ptr, layout, new_size) }
+    }
+    unsafe fn dealloc(&self, ptr: *mut u8, layout: Layout) {
+        unsafe { System.dealloc(ptr, layout) }
+    }
+}
+
+#[global_allocator]
+static GLOBAL: Counting = Counting;
+
 fn main() {
+    // One rayon thread for the whole process, as a run with `--threads 1` sets it: the
+    // calls below run on this thread (MPI's communicator stays on the thread that made it).
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(1)
+        .build_global()
+        .expect("global one-thread pool");
     let target: usize = std::env::var("SIGNFOLD_BENCH_PARTICLES")
         .ok()
         .and_then(|v| v.parse().ok())
         .unwrap_or(10_000_000);
+    // The comm of a one-rank run; `Solo` when MPI does not start here.
+    let universe = mpi::initialize();
+    let world = universe.as_ref().map(|u| World::new(u.world()));
+    let (comm, comm_name): (&dyn Comm, &str) = match &world {
+        Some(w) => (w, "MPI World, 1 rank"),
+        None => (&Solo, "Solo (MPI did not start)"),
+    };
     let t0 = Instant::now();
     let set = [format!("numerics.particles={}", target / 2)];
     let setup = support::setup("fermion-pair-coulomb.toml", &set);
@@ -65,7 +125,23 @@ fn main() {
     let n = store.len();
     let mut rs = Stream::seed_from_u64(1);
     let keys: Vec<u64> = (0..n).map(|_| rs.random()).collect();
-    let pool = support::one_thread();
+
+    // The run's path: one Annihilator for all calls; warm it up and check it agrees.
+    let mut kept = Annihilator::default();
+    let mut s = store.clone();
+    kept.run(&setup, &mesh, &mut s, step, comm);
+    assert_eq!(support::fingerprint(&s), print, "kept buffers, {comm_name}");
+    let mut s = store.clone();
+    let a = allocations();
+    kept.run(&setup, &mesh, &mut s, step, comm);
+    let warm_allocs = allocations() - a;
+    let mut s = store.clone();
+    let a = allocations();
+    annihilate(&setup, &mesh, &mut s, step, &Solo);
+    let fresh_allocs = allocations() - a;
+    println!(
+        "heap allocations in one call: kept buffers ({comm_name}) {warm_allocs}, fresh buffers {fresh_allocs}"
+    );
 
     // The cases; each returns the time of its measured part (the copy of the input is not).
     let mut sort = || {
@@ -76,16 +152,24 @@ fn main() {
         black_box(&v);
         d
     };
-    let mut ann = || {
+    let mut run = || {
         let mut s = store.clone();
         let t = Instant::now();
-        let r = pool.install(|| annihilate(&setup, &mesh, &mut s, step, &Solo));
+        let r = kept.run(&setup, &mesh, &mut s, step, comm);
         let d = t.elapsed();
         black_box((r, &s));
         d
     };
-    let names = ["sort-u64", "annihilate"];
-    let mut cases: [&mut dyn FnMut() -> Duration; 2] = [&mut sort, &mut ann];
+    let mut fresh = || {
+        let mut s = store.clone();
+        let t = Instant::now();
+        let r = annihilate(&setup, &mesh, &mut s, step, &Solo);
+        let d = t.elapsed();
+        black_box((r, &s));
+        d
+    };
+    let names = ["sort-u64", "annihilate", "annihilate-fresh"];
+    let mut cases: [&mut dyn FnMut() -> Duration; 3] = [&mut sort, &mut run, &mut fresh];
 
     let mut c = support::criterion();
     {
@@ -103,27 +187,36 @@ fn main() {
         return;
     }
 
-    // The summary: interleaved rounds, so that the ratio compares like with like.
+    // The summary: interleaved rounds, so that the ratios compare like with like.
     let m = support::interleaved(ROUNDS, &mut cases);
-    let (sort, ann) = (m[0], m[1]);
+    let (sort, run, fresh) = (m[0], m[1], m[2]);
     let rows = [
-        format!("sort-u64,{n},{n},,1,{sort:.6},1.000"),
+        format!("sort-u64,{n},{n},,1,{sort:.6},1.000,"),
         format!(
-            "annihilate,{n},{},{},1,{ann:.6},{:.3}",
+            "annihilate,{n},{},{},1,{run:.6},{:.3},{warm_allocs}",
             rep.after,
             rep.local_cells,
-            ann / sort
+            run / sort
+        ),
+        format!(
+            "annihilate-fresh,{n},{},{},1,{fresh:.6},{:.3},{fresh_allocs}",
+            rep.after,
+            rep.local_cells,
+            fresh / sort
         ),
     ];
     println!(
-        "interleaved medians of {ROUNDS} rounds, one thread: sort_unstable {:.1} ms, annihilate {:.1} ms: ratio {:.2}",
+        "interleaved medians of {ROUNDS} rounds, one thread: sort_unstable {:.1} ms, annihilate \
+         ({comm_name}, kept buffers) {:.1} ms: ratio {:.2}; fresh buffers {:.1} ms: ratio {:.2}",
         sort * 1e3,
-        ann * 1e3,
-        ann / sort
+        run * 1e3,
+        run / sort,
+        fresh * 1e3,
+        fresh / sort
     );
     support::write_csv(
         "bench-annihilation.csv",
-        "case,particles_in,particles_out,occupied_cells,threads,median_seconds,ratio_to_sort",
+        "case,particles_in,particles_out,occupied_cells,threads,median_seconds,ratio_to_sort,allocations_per_call",
         &rows,
     );
     println!("machine: {}", support::machine());

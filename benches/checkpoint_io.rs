@@ -78,6 +78,7 @@ fn main() {
         },
         initial_count: total,
         annihilations: 0,
+        count_after_annihilation: 0,
     };
     let mut results = ResultFile::new(
         signfold::io::results::OBSERVABLES_TYPE,
@@ -191,5 +192,6 @@ fn clone_state(s: &State) -> State {
         gone: s.gone.clone(),
         initial_count: s.initial_count,
         annihilations: s.annihilations,
+        count_after_annihilation: s.count_after_annihilation,
     }
 }

@@ -130,7 +130,7 @@ fn coherence_length_must_be_positive() {
 fn bad_override_is_named() {
     let dir = tempfile::tempdir().unwrap();
     let job = write_job(dir.path(), "good.toml", GOOD);
-    let o = signfold(&["check", job.to_str().unwrap(), "--set", "numerics.groups=1"]);
+    let o = signfold(&["check", job.to_str().unwrap(), "--set", "numerics.groups=0"]);
     assert_eq!(o.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&o.stderr).contains("numerics.groups"));
     let o = signfold(&["check", job.to_str().unwrap(), "--set", "numerics"]);

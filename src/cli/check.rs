@@ -113,7 +113,7 @@ fn report(setup: &Setup, ranks: usize) -> Result<String> {
     let mesh = signfold::engine::annihilate::CellMesh::new(setup)?;
     writeln!(
         w,
-        "annihilation cells: {:.4} nm × {:.5} 1/nm ({:?}{}), mesh volume {:.3e} cells (stored sparsely), trigger at {}× the initial count",
+        "annihilation cells: {:.4} nm × {:.5} 1/nm ({:?}{}), mesh volume {:.3e} cells (stored sparsely), trigger at {}× the initial count or the count after the latest annihilation, if larger",
         setup.cell_x,
         setup.cell_k,
         setup.cells,

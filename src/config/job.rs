@@ -154,7 +154,8 @@ pub struct Annihilation {
     pub cell_x: Option<f64>,
     /// Cell size in k, 1/nm (default Δk/2).
     pub cell_k: Option<f64>,
-    /// Annihilate when the global particle count exceeds trigger × the initial count.
+    /// Annihilate when the global particle count exceeds trigger × the larger of the initial
+    /// count and the count right after the latest annihilation.
     #[serde(default = "default_trigger")]
     pub trigger: f64,
     /// Live samples the run may hold on all ranks together (default 4 × numerics.particles).
@@ -595,10 +596,9 @@ pub fn validate(job: &Job) -> Result<()> {
     if m.particles == 0 {
         bail!("numerics.particles: must be at least 1");
     }
-    if m.groups < 2 {
+    if m.groups < 1 {
         bail!(
-            "numerics.groups: at least 2 independent sub-ensembles are needed for error bars (got {})",
-            m.groups
+            "numerics.groups: at least 1 (got 0); 1 gives no error bars (`_error` datasets hold NaN), 2 or more do"
         );
     }
     if m.groups > 1 << 15 {

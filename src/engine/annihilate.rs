@@ -10,6 +10,13 @@
 //! to the key's owner rank; the owner answers for mixed cells only; where several ranks hold
 //! majority particles of one mixed cell, a second exchange of their priorities fixes a
 //! threshold. Traffic is proportional to the occupied cells, never to the mesh volume.
+//!
+//! Nothing is sorted: occupied cells are counted in an open-addressing hash table of the
+//! 128-bit keys, and only the majority particles of mixed cells that keep some of them get
+//! a priority, gathered per cell by a counting pass. Among a cell's majority particles the
+//! survivors are the `keep` smallest in the order (priority, rank, position in the rank's
+//! store); on one rank that is a selection, not a sort. The buffers live in an
+//! [`Annihilator`] that the run keeps from one call to the next.
 
 use crate::engine::comm::Comm;
 pub use crate::physics::cells::CellMesh;
@@ -42,8 +49,8 @@ pub struct Report {
     /// Occupied cells on this rank and 64-bit words this rank sent.
     pub local_cells: u64,
     pub words_sent: u64,
-    /// Wall seconds of this rank in: keys and sort; the exchanges with the owners; the
-    /// selection of survivors.
+    /// Wall seconds of this rank in: keys and cell counts; the exchanges with the owners;
+    /// the selection of survivors.
     pub binning_s: f64,
     pub reduction_s: f64,
     pub selection_s: f64,
@@ -52,187 +59,473 @@ pub struct Report {
 const SELECT_LOCAL: u64 = 1;
 const NEED_THRESHOLD: u64 = 2;
 
-/// Annihilate in place. `interval` keys the priorities.
-pub fn annihilate(
-    setup: &Setup,
-    mesh: &CellMesh,
-    store: &mut Store,
-    interval: u64,
-    comm: &dyn Comm,
-) -> Report {
-    let ranks = comm.size();
-    let mut before = [store.len() as i64];
-    comm.sum_i64(&mut before);
-    let t_start = std::time::Instant::now();
-    // 1. Keys, sorted; runs of equal keys are the occupied cells. Each entry carries the
-    //    particle's priority and sign (they fill the padding of the 32-byte entry), so that
-    //    the passes over the cells below never read the store at random.
-    let mut order: Vec<(u128, u64, u32, i8)> = (0..store.len())
-        .into_par_iter()
-        .map(|p| {
-            (
-                mesh.key(store.xs(p), store.ks(p), store.id[p]),
-                priority(setup, store, p, interval),
-                p as u32,
-                store.sign[p],
-            )
-        })
-        .collect();
-    order.par_sort_unstable();
-    let mut runs: Vec<(u128, usize, usize, u32, u32)> = Vec::new(); // key, from, to, plus, minus
-    let mut a = 0;
-    while a < order.len() {
-        let key = order[a].0;
-        let mut b = a;
-        let (mut plus, mut minus) = (0u32, 0u32);
-        while b < order.len() && order[b].0 == key {
-            if order[b].3 > 0 {
-                plus += 1;
-            } else {
-                minus += 1;
-            }
-            b += 1;
+const EMPTY: u64 = u64::MAX;
+
+/// One slot of [`CellTable`]: a key and its dense cell index (`EMPTY` when free).
+#[derive(Clone, Copy)]
+struct Slot {
+    lo: u64,
+    hi: u64,
+    cell: u64,
+}
+
+const FREE: Slot = Slot {
+    lo: 0,
+    hi: 0,
+    cell: EMPTY,
+};
+
+/// Open-addressing hash table (linear probing, load ≤ 1/2) from 128-bit cell keys to dense
+/// cell indices 0, 1, 2, … in order of first insertion. Keeps its capacity when cleared.
+#[derive(Default)]
+struct CellTable {
+    slots: Vec<Slot>,
+    /// 64 − log2(slots.len()): the hash's top bits index the slots.
+    shift: u32,
+    /// Keys by dense cell index.
+    keys: Vec<u128>,
+}
+
+/// Slot hash of a key: both halves multiplied into 64 well-mixed bits (the top bits are used).
+#[inline]
+fn slot_hash(lo: u64, hi: u64) -> u64 {
+    let h = (lo ^ hi.rotate_left(29).wrapping_mul(0x9e37_79b9_7f4a_7c15))
+        .wrapping_mul(0xd6e8_feb8_6659_fd93);
+    h ^ (h >> 32)
+}
+
+impl CellTable {
+    /// Forget all keys; keep the storage (at least `min_slots` slots, a power of two).
+    fn clear(&mut self, min_slots: usize) {
+        let want = min_slots.max(1024).next_power_of_two();
+        if self.slots.len() < want {
+            self.slots = vec![FREE; want];
+        } else {
+            self.slots.fill(FREE);
         }
-        runs.push((key, a, b, plus, minus));
-        a = b;
+        self.shift = 64 - self.slots.len().trailing_zeros();
+        self.keys.clear();
     }
-    let t_binned = std::time::Instant::now();
-    // 2. (key, +, −) to owners.
-    let mut send = vec![Vec::new(); ranks];
-    for &(key, _, _, plus, minus) in &runs {
-        let m = &mut send[owner(key, ranks)];
-        m.extend_from_slice(&[key as u64, (key >> 64) as u64, plus as u64, minus as u64]);
+
+    /// Number of distinct keys inserted.
+    fn len(&self) -> usize {
+        self.keys.len()
     }
-    let mut words = send.iter().map(|v| v.len() as u64).sum::<u64>();
-    let recv = comm.exchange(&send);
-    // 3. Owner: sum per key, decide mixed cells.
-    let mut entries: Vec<(u128, usize, u64, u64)> = Vec::new();
-    for (r, msg) in recv.iter().enumerate() {
-        for w in msg.chunks_exact(4) {
-            entries.push(((w[0] as u128) | ((w[1] as u128) << 64), r, w[2], w[3]));
-        }
-    }
-    entries.sort_unstable();
-    let mut reply = vec![Vec::new(); ranks];
-    let mut i = 0;
-    while i < entries.len() {
-        let key = entries[i].0;
-        let mut j = i;
-        let (mut plus, mut minus) = (0u64, 0u64);
-        while j < entries.len() && entries[j].0 == key {
-            plus += entries[j].2;
-            minus += entries[j].3;
-            j += 1;
-        }
-        if plus > 0 && minus > 0 {
-            let net = plus as i64 - minus as i64;
-            let keep = net.unsigned_abs();
-            let major: i64 = net.signum();
-            let holders_of_major = entries[i..j]
-                .iter()
-                .filter(|e| if major > 0 { e.2 > 0 } else { e.3 > 0 })
-                .count();
-            for e in &entries[i..j] {
-                let mode = if keep == 0 || holders_of_major == 1 {
-                    SELECT_LOCAL
-                } else {
-                    NEED_THRESHOLD
+
+    /// Dense index of `key`, inserting it when new.
+    #[inline]
+    fn insert(&mut self, key: u128) -> usize {
+        let (lo, hi) = (key as u64, (key >> 64) as u64);
+        let mask = self.slots.len() - 1;
+        let mut i = (slot_hash(lo, hi) >> self.shift) as usize;
+        loop {
+            let s = self.slots[i];
+            if s.cell == EMPTY {
+                let c = self.keys.len();
+                self.slots[i] = Slot {
+                    lo,
+                    hi,
+                    cell: c as u64,
                 };
-                reply[e.1].extend_from_slice(&[
-                    key as u64,
-                    (key >> 64) as u64,
-                    major as u64,
-                    keep,
-                    mode,
-                ]);
+                self.keys.push(key);
+                if 2 * self.keys.len() > self.slots.len() {
+                    self.grow();
+                }
+                return c;
+            }
+            if s.lo == lo && s.hi == hi {
+                return s.cell as usize;
+            }
+            i = (i + 1) & mask;
+        }
+    }
+
+    /// Dense index of `key` if present.
+    #[inline]
+    fn get(&self, key: u128) -> Option<usize> {
+        let (lo, hi) = (key as u64, (key >> 64) as u64);
+        let mask = self.slots.len() - 1;
+        let mut i = (slot_hash(lo, hi) >> self.shift) as usize;
+        loop {
+            let s = self.slots[i];
+            if s.cell == EMPTY {
+                return None;
+            }
+            if s.lo == lo && s.hi == hi {
+                return Some(s.cell as usize);
+            }
+            i = (i + 1) & mask;
+        }
+    }
+
+    /// Double the slots and re-insert every key.
+    fn grow(&mut self) {
+        let n = self.slots.len() * 2;
+        self.slots.clear();
+        self.slots.resize(n, FREE);
+        self.shift = 64 - n.trailing_zeros();
+        let mask = n - 1;
+        for (c, &key) in self.keys.iter().enumerate() {
+            let (lo, hi) = (key as u64, (key >> 64) as u64);
+            let mut i = (slot_hash(lo, hi) >> self.shift) as usize;
+            while self.slots[i].cell != EMPTY {
+                i = (i + 1) & mask;
+            }
+            self.slots[i] = Slot {
+                lo,
+                hi,
+                cell: c as u64,
+            };
+        }
+    }
+}
+
+/// What happens to the particles of one local cell.
+#[derive(Clone, Copy, Default)]
+struct Decision {
+    /// Both signs in the cell (globally): its particles are decided; else untouched.
+    mixed: bool,
+    /// Majority sign; 0 when the cell cancels exactly (then nothing survives).
+    major: i8,
+    /// The cell's majority particles on several ranks: a threshold comes from the owner.
+    threshold: bool,
+    /// Majority particles kept in the whole cell.
+    quota: u64,
+}
+
+/// The buffers of annihilation, kept from one call to the next so that a run allocates
+/// only while its particle and cell counts still grow.
+#[derive(Default)]
+pub struct Annihilator {
+    /// Occupied cells of this rank.
+    table: CellTable,
+    /// Per particle: its local cell index.
+    cell_of: Vec<usize>,
+    /// Per particle (only with several threads): its cell key.
+    keys: Vec<u128>,
+    /// Per local cell: + and − counts on this rank.
+    plus: Vec<u64>,
+    minus: Vec<u64>,
+    decision: Vec<Decision>,
+    /// Per local cell: end of its candidate range in `cand` after the counting pass.
+    next: Vec<usize>,
+    /// (priority, particle index) of the majority particles that take part in a selection,
+    /// grouped by cell, each group in store order.
+    cand: Vec<(u64, usize)>,
+    keep: Vec<bool>,
+    /// Owner side: global cells of the keys this rank owns.
+    owned: CellTable,
+    owned_plus: Vec<u64>,
+    owned_minus: Vec<u64>,
+    owned_holders: Vec<(u64, u64)>,
+    /// Per destination rank: the local cells sent there, in message order.
+    sent_cells: Vec<Vec<usize>>,
+}
+
+impl Annihilator {
+    /// Annihilate `store` in place (docs/method.md §3): in every globally mixed cell keep
+    /// |P − Q| majority particles, those first in (priority, rank, store position), and drop
+    /// the rest; `interval` keys the priorities. Returns the global counts before and after,
+    /// this rank's occupied cells and words sent, and its phase times.
+    pub fn run(
+        &mut self,
+        setup: &Setup,
+        mesh: &CellMesh,
+        store: &mut Store,
+        interval: u64,
+        comm: &dyn Comm,
+    ) -> Report {
+        let ranks = comm.size();
+        let mut before = [store.len() as i64];
+        comm.sum_i64(&mut before);
+        let t_start = std::time::Instant::now();
+        // 1. Occupied cells of this rank with their (+, −) counts.
+        self.bin(mesh, store);
+        let cells = self.table.len();
+        let t_binned = std::time::Instant::now();
+        // 2. Global decision per cell: on one rank straight from the local counts, else from
+        //    the owners of the keys.
+        self.decision.clear();
+        self.decision.resize(cells, Decision::default());
+        let mut words = 0u64;
+        if ranks == 1 {
+            for c in 0..cells {
+                if let Some(d) = decide(self.plus[c], self.minus[c], 1, 1) {
+                    self.decision[c] = d;
+                }
+            }
+        } else {
+            words += self.decide_with_owners(comm);
+        }
+        let t_decided = std::time::Instant::now();
+        // 3. Drop minority particles; gather the majority candidates per cell; select
+        //    where this rank holds all of a cell's majority particles.
+        self.gather(setup, store, interval);
+        for c in 0..cells {
+            let d = self.decision[c];
+            if !d.mixed || d.threshold || d.quota == 0 {
+                continue;
+            }
+            let range = self.candidates(c);
+            let q = d.quota as usize;
+            let list = &mut self.cand[range];
+            if q < list.len() {
+                // (priority, index) pairs are distinct: the q smallest are one set.
+                list.select_nth_unstable(q);
+                for e in &list[q..] {
+                    self.keep[e.1] = false;
+                }
             }
         }
-        i = j;
+        let t_selected = std::time::Instant::now();
+        // 4. Threshold exchange for cells whose majority particles live on several ranks.
+        if ranks > 1 {
+            words += self.thresholds(comm);
+        }
+        let t_thresholds = std::time::Instant::now();
+        store.retain(&self.keep);
+        let t_end = std::time::Instant::now();
+        let mut after = [store.len() as i64];
+        comm.sum_i64(&mut after);
+        let s = |a: std::time::Instant, b: std::time::Instant| (b - a).as_secs_f64();
+        Report {
+            before: before[0] as u64,
+            after: after[0] as u64,
+            local_cells: cells as u64,
+            words_sent: words,
+            binning_s: s(t_start, t_binned),
+            reduction_s: s(t_binned, t_decided) + s(t_selected, t_thresholds),
+            selection_s: s(t_decided, t_selected) + s(t_thresholds, t_end),
+        }
     }
-    words += reply.iter().map(|v| v.len() as u64).sum::<u64>();
-    let decisions = comm.exchange(&reply);
-    let t_decided = std::time::Instant::now();
-    // 4. Holders: drop minority particles; select majority ones locally or ask for a threshold.
-    let run_of = |key: u128| {
-        runs.binary_search_by(|r| r.0.cmp(&key))
-            .expect("owner replies only for keys we sent")
-    };
-    let mut keep = vec![true; store.len()];
-    let mut ask = vec![Vec::new(); ranks];
-    let mut pending: Vec<(u128, usize, i8)> = Vec::new(); // key, run index, majority sign
-    for msg in &decisions {
-        for w in msg.chunks_exact(5) {
-            let key = (w[0] as u128) | ((w[1] as u128) << 64);
-            let (major, quota, mode) = (w[2] as i64 as i8, w[3], w[4]);
-            let ri = run_of(key);
-            let (_, from, to, _, _) = runs[ri];
-            let mut mine: Vec<(u64, usize)> = Vec::new();
-            for &(_, pr, p, sign) in &order[from..to] {
-                let p = p as usize;
-                if sign != major {
-                    keep[p] = false;
+
+    /// Fill `table` with the occupied cells of `store`, `cell_of` with each particle's cell
+    /// and `plus`/`minus` with the signs counted per cell.
+    fn bin(&mut self, mesh: &CellMesh, store: &Store) {
+        let n = store.len();
+        let hint = 2 * self.table.len();
+        self.table.clear(hint);
+        self.plus.clear();
+        self.minus.clear();
+        self.cell_of.clear();
+        self.cell_of.reserve(n);
+        let threads = rayon::current_num_threads();
+        if threads > 1 {
+            // Keys in parallel, then the (cache-resident) counting pass.
+            const CHUNK: usize = 1 << 14;
+            self.keys.clear();
+            self.keys.resize(n, 0);
+            self.keys
+                .par_chunks_mut(CHUNK)
+                .enumerate()
+                .for_each(|(j, chunk)| {
+                    for (i, key) in chunk.iter_mut().enumerate() {
+                        let p = j * CHUNK + i;
+                        *key = mesh.key(store.xs(p), store.ks(p), store.id[p]);
+                    }
+                });
+        }
+        for p in 0..n {
+            let key = if threads > 1 {
+                self.keys[p]
+            } else {
+                mesh.key(store.xs(p), store.ks(p), store.id[p])
+            };
+            let c = self.table.insert(key);
+            if c == self.plus.len() {
+                self.plus.push(0);
+                self.minus.push(0);
+            }
+            if store.sign[p] > 0 {
+                self.plus[c] += 1;
+            } else {
+                self.minus[c] += 1;
+            }
+            self.cell_of.push(c);
+        }
+    }
+
+    /// Local majority particles of cell c: their range in `cand` (after `gather`).
+    fn candidates(&self, c: usize) -> std::ops::Range<usize> {
+        let d = self.decision[c];
+        if !takes_part(d) {
+            return 0..0;
+        }
+        let count = if d.major > 0 {
+            self.plus[c]
+        } else {
+            self.minus[c]
+        } as usize;
+        self.next[c] - count..self.next[c]
+    }
+
+    /// One pass over the store: `keep` false for particles of mixed cells that cannot
+    /// survive (minority sign, or a cell that keeps none), and the (priority, index) of the
+    /// others into `cand`, grouped per cell by a counting pass.
+    fn gather(&mut self, setup: &Setup, store: &Store, interval: u64) {
+        let cells = self.table.len();
+        self.next.clear();
+        let mut total = 0usize;
+        for c in 0..cells {
+            self.next.push(total);
+            let d = self.decision[c];
+            if takes_part(d) {
+                total += if d.major > 0 {
+                    self.plus[c]
                 } else {
-                    mine.push((pr, p));
-                }
-            }
-            if mode == SELECT_LOCAL {
-                mine.sort_unstable();
-                for &(_, p) in mine.iter().skip(quota as usize) {
-                    keep[p] = false;
-                }
-            } else if !mine.is_empty() {
-                let m = &mut ask[owner(key, ranks)];
-                m.extend_from_slice(&[key as u64, (key >> 64) as u64, mine.len() as u64]);
-                m.extend(mine.iter().map(|e| e.0));
-                pending.push((key, ri, major));
+                    self.minus[c]
+                } as usize;
             }
         }
+        self.cand.clear();
+        self.cand.resize(total, (0, 0));
+        self.keep.clear();
+        self.keep.resize(store.len(), true);
+        for p in 0..store.len() {
+            let c = self.cell_of[p];
+            let d = self.decision[c];
+            if !d.mixed {
+                continue;
+            }
+            if store.sign[p] != d.major || !takes_part(d) {
+                self.keep[p] = false;
+                continue;
+            }
+            self.cand[self.next[c]] = (priority(setup, store, p, interval), p);
+            self.next[c] += 1;
+        }
     }
-    pending.sort_unstable();
-    let t_selected = std::time::Instant::now();
-    // 5. Threshold exchange for cells whose majority particles live on several ranks.
-    if comm.any(!pending.is_empty()) {
-        words += ask.iter().map(|v| v.len() as u64).sum::<u64>();
+
+    /// Send (key, +, −) of every local cell to its owner; the owners sum them and answer
+    /// mixed cells with (majority sign, number kept, whether a threshold is needed).
+    /// Fills `decision`; returns the words this rank sent.
+    fn decide_with_owners(&mut self, comm: &dyn Comm) -> u64 {
+        let ranks = comm.size();
+        let cells = self.table.len();
+        let mut send = vec![Vec::new(); ranks];
+        self.sent_cells.resize(ranks, Vec::new());
+        for s in &mut self.sent_cells {
+            s.clear();
+        }
+        for c in 0..cells {
+            let key = self.table.keys[c];
+            let o = owner(key, ranks);
+            send[o].extend_from_slice(&[
+                key as u64,
+                (key >> 64) as u64,
+                self.plus[c],
+                self.minus[c],
+            ]);
+            self.sent_cells[o].push(c);
+        }
+        let mut words = send.iter().map(|v| v.len() as u64).sum::<u64>();
+        let recv = comm.exchange(&send);
+        // Owner: global counts and the number of ranks holding each sign, per key.
+        let entries: usize = recv.iter().map(|m| m.len() / 4).sum();
+        self.owned.clear(2 * entries);
+        self.owned_plus.clear();
+        self.owned_minus.clear();
+        self.owned_holders.clear();
+        let mut entry_cell = Vec::with_capacity(entries);
+        for msg in &recv {
+            for w in msg.chunks_exact(4) {
+                let g = self.owned.insert((w[0] as u128) | ((w[1] as u128) << 64));
+                if g == self.owned_plus.len() {
+                    self.owned_plus.push(0);
+                    self.owned_minus.push(0);
+                    self.owned_holders.push((0, 0));
+                }
+                self.owned_plus[g] += w[2];
+                self.owned_minus[g] += w[3];
+                self.owned_holders[g].0 += (w[2] > 0) as u64;
+                self.owned_holders[g].1 += (w[3] > 0) as u64;
+                entry_cell.push(g);
+            }
+        }
+        let mut reply = vec![Vec::new(); ranks];
+        let mut e = 0;
+        for (r, msg) in recv.iter().enumerate() {
+            for j in 0..msg.len() / 4 {
+                let g = entry_cell[e];
+                e += 1;
+                let (hp, hm) = self.owned_holders[g];
+                if let Some(d) = decide(self.owned_plus[g], self.owned_minus[g], hp, hm) {
+                    let mode = if d.threshold {
+                        NEED_THRESHOLD
+                    } else {
+                        SELECT_LOCAL
+                    };
+                    reply[r].extend_from_slice(&[j as u64, d.major as i64 as u64, d.quota, mode]);
+                }
+            }
+        }
+        words += reply.iter().map(|v| v.len() as u64).sum::<u64>();
+        let decisions = comm.exchange(&reply);
+        for (o, msg) in decisions.iter().enumerate() {
+            for w in msg.chunks_exact(4) {
+                let c = self.sent_cells[o][w[0] as usize];
+                self.decision[c] = Decision {
+                    mixed: true,
+                    major: w[1] as i64 as i8,
+                    threshold: w[3] == NEED_THRESHOLD,
+                    quota: w[2],
+                };
+            }
+        }
+        words
+    }
+
+    /// For cells whose majority particles sit on several ranks: holders send their
+    /// candidates' priorities to the owner, which returns the priority of the last survivor
+    /// and how many particles at exactly that priority this rank keeps (ties go to lower
+    /// ranks first, and on a rank in store order). Returns the words this rank sent.
+    fn thresholds(&mut self, comm: &dyn Comm) -> u64 {
+        let ranks = comm.size();
+        let cells = self.table.len();
+        let mut ask = vec![Vec::new(); ranks];
+        let mut pending = false;
+        for c in 0..cells {
+            let d = self.decision[c];
+            if !(d.mixed && d.threshold) {
+                continue;
+            }
+            let range = self.candidates(c);
+            if range.is_empty() {
+                continue;
+            }
+            let key = self.table.keys[c];
+            let m = &mut ask[owner(key, ranks)];
+            m.extend_from_slice(&[key as u64, (key >> 64) as u64, range.len() as u64]);
+            m.extend(self.cand[range].iter().map(|e| e.0));
+            pending = true;
+        }
+        if !comm.any(pending) {
+            return 0;
+        }
+        let mut words = ask.iter().map(|v| v.len() as u64).sum::<u64>();
         let asked = comm.exchange(&ask);
-        // key → (priority, rank) lists
-        let mut lists: Vec<(u128, u64, usize)> = Vec::new();
+        // Owner: (cell, priority, rank) of every candidate it was sent.
+        let mut lists: Vec<(usize, u64, usize)> = Vec::new();
         for (r, msg) in asked.iter().enumerate() {
             let mut w = &msg[..];
             while w.len() >= 3 {
                 let key = (w[0] as u128) | ((w[1] as u128) << 64);
-                let c = w[2] as usize;
-                for &pr in &w[3..3 + c] {
-                    lists.push((key, pr, r));
-                }
-                w = &w[3 + c..];
+                let g = self.owned.get(key).expect("asked keys are owned");
+                let count = w[2] as usize;
+                lists.extend(w[3..3 + count].iter().map(|&pr| (g, pr, r)));
+                w = &w[3 + count..];
             }
         }
         lists.sort_unstable();
-        // keep counts per key: recompute from the cell totals we own
-        let mut totals: Vec<(u128, u64)> = Vec::new();
-        let mut i = 0;
-        while i < entries.len() {
-            let key = entries[i].0;
-            let (mut plus, mut minus) = (0u64, 0u64);
-            while i < entries.len() && entries[i].0 == key {
-                plus += entries[i].2;
-                minus += entries[i].3;
-                i += 1;
-            }
-            totals.push((key, (plus as i64 - minus as i64).unsigned_abs()));
-        }
         let mut answer = vec![Vec::new(); ranks];
         let mut i = 0;
         while i < lists.len() {
-            let key = lists[i].0;
+            let g = lists[i].0;
             let mut j = i;
-            while j < lists.len() && lists[j].0 == key {
+            while j < lists.len() && lists[j].0 == g {
                 j += 1;
             }
-            let quota = totals[totals
-                .binary_search_by(|t| t.0.cmp(&key))
-                .expect("asked keys are owned")]
-            .1 as usize;
+            let quota = self.owned_plus[g].abs_diff(self.owned_minus[g]) as usize;
             let cell = &lists[i..j];
             let threshold = cell[quota - 1].1;
             let below = cell.iter().filter(|e| e.1 < threshold).count();
@@ -240,6 +533,7 @@ pub fn annihilate(
             let mut ranks_here: Vec<usize> = cell.iter().map(|e| e.2).collect();
             ranks_here.sort_unstable();
             ranks_here.dedup();
+            let key = self.owned.keys[g];
             for r in ranks_here {
                 let ties_on_r = cell.iter().filter(|e| e.2 == r && e.1 == threshold).count();
                 let give = ties_on_r.min(ties_left);
@@ -259,18 +553,9 @@ pub fn annihilate(
             for w in msg.chunks_exact(4) {
                 let key = (w[0] as u128) | ((w[1] as u128) << 64);
                 let (threshold, mut ties) = (w[2], w[3]);
-                let Ok(pi) = pending.binary_search_by(|e| e.0.cmp(&key)) else {
-                    continue;
-                };
-                let (_, ri, major) = pending[pi];
-                let (_, from, to, _, _) = runs[ri];
-                let mut mine: Vec<(u64, usize)> = order[from..to]
-                    .iter()
-                    .filter(|e| e.3 == major && keep[e.2 as usize])
-                    .map(|e| (e.1, e.2 as usize))
-                    .collect();
-                mine.sort_unstable();
-                for (pr, p) in mine {
+                let c = self.table.get(key).expect("answers come for keys we asked");
+                // Candidates are in store order: ties are kept first come.
+                for &(pr, p) in &self.cand[self.candidates(c)] {
                     if pr < threshold {
                         continue;
                     }
@@ -278,26 +563,54 @@ pub fn annihilate(
                         ties -= 1;
                         continue;
                     }
-                    keep[p] = false;
+                    self.keep[p] = false;
                 }
             }
         }
+        words
     }
-    let t_thresholds = std::time::Instant::now();
-    store.retain(&keep);
-    let t_end = std::time::Instant::now();
-    let mut after = [store.len() as i64];
-    comm.sum_i64(&mut after);
-    let s = |a: std::time::Instant, b: std::time::Instant| (b - a).as_secs_f64();
-    Report {
-        before: before[0] as u64,
-        after: after[0] as u64,
-        local_cells: runs.len() as u64,
-        words_sent: words,
-        binning_s: s(t_start, t_binned),
-        reduction_s: s(t_binned, t_decided) + s(t_selected, t_thresholds),
-        selection_s: s(t_decided, t_selected) + s(t_thresholds, t_end),
+}
+
+/// True when the local majority particles of a decided cell need a priority: a selection
+/// here or a threshold from the owner (not when the cell keeps none of them).
+fn takes_part(d: Decision) -> bool {
+    d.mixed && d.major != 0 && (d.threshold || d.quota > 0)
+}
+
+/// The decision for a cell with global counts (plus, minus) whose + and − particles sit on
+/// `holders_plus` and `holders_minus` ranks: `None` unless both signs are present; else the
+/// majority sign (0 when they cancel), the number of majority particles kept, and whether
+/// the majority particles are spread over several ranks (a threshold is needed).
+fn decide(plus: u64, minus: u64, holders_plus: u64, holders_minus: u64) -> Option<Decision> {
+    if plus == 0 || minus == 0 {
+        return None;
     }
+    let net = plus as i64 - minus as i64;
+    let quota = net.unsigned_abs();
+    let major = net.signum() as i8;
+    let holders_of_major = if major > 0 {
+        holders_plus
+    } else {
+        holders_minus
+    };
+    Some(Decision {
+        mixed: true,
+        major,
+        threshold: !(quota == 0 || holders_of_major == 1),
+        quota,
+    })
+}
+
+/// Annihilate in place with fresh buffers (see [`Annihilator::run`]; a run keeps one
+/// [`Annihilator`] instead).
+pub fn annihilate(
+    setup: &Setup,
+    mesh: &CellMesh,
+    store: &mut Store,
+    interval: u64,
+    comm: &dyn Comm,
+) -> Report {
+    Annihilator::default().run(setup, mesh, store, interval, comm)
 }
 
 /// Even out particle counts over ranks (global order: rank, then position in the store).

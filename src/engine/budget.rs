@@ -3,7 +3,7 @@
 //! up to [`MAX_LEVEL`]. Every pass is the same partition-independent reduction, so the
 //! survivors stay bit-identical on any number of ranks and threads.
 
-use crate::engine::annihilate::{self, Report};
+use crate::engine::annihilate::{Annihilator, Report};
 use crate::engine::comm::Comm;
 use crate::physics::cells::CellMesh;
 use crate::physics::numerics::Setup;
@@ -37,17 +37,17 @@ impl Levels {
 pub fn annihilate_within_budget(
     setup: &Setup,
     levels: &Levels,
+    annihilator: &mut Annihilator,
     store: &mut Store,
     interval: u64,
     comm: &dyn Comm,
 ) -> (Report, u32) {
     let target = setup.budget / 2;
-    let mut total = annihilate::annihilate(setup, &levels.meshes[0], store, interval, comm);
+    let mut total = annihilator.run(setup, &levels.meshes[0], store, interval, comm);
     let mut level = 0;
     while total.after > target && level < MAX_LEVEL {
         level += 1;
-        let r =
-            annihilate::annihilate(setup, &levels.meshes[level as usize], store, interval, comm);
+        let r = annihilator.run(setup, &levels.meshes[level as usize], store, interval, comm);
         total.after = r.after;
         total.local_cells = r.local_cells;
         total.words_sent += r.words_sent;

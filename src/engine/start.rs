@@ -57,6 +57,7 @@ pub fn initial_state(setup: &Setup, comm: &dyn Comm) -> Result<(State, InitialRe
             momentum: vec![0; g],
         },
         initial_count: total as u64,
+        count_after_annihilation: 0,
         annihilations: 0,
     };
     Ok((state, report))

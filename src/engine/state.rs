@@ -11,5 +11,7 @@ pub struct State {
     pub s0: Vec<i64>,
     pub gone: Departed,
     pub initial_count: u64,
+    /// Global particle count right after the latest annihilation (0 before the first).
+    pub count_after_annihilation: u64,
     pub annihilations: u64,
 }

@@ -165,6 +165,9 @@ fn write_state(f: &hdf5::File, st: &State, job: &LoadedJob, time: f64) -> hdf5::
     f.new_attr::<u64>()
         .create(cp::ATTR_ANNIHILATIONS)?
         .write_scalar(&st.annihilations)?;
+    f.new_attr::<u64>()
+        .create(cp::ATTR_COUNT_AFTER_ANNIHILATION)?
+        .write_scalar(&st.count_after_annihilation)?;
     let g = f.create_group(cp::STATE_GROUP)?;
     for (name, v) in [
         (cp::S0, &st.s0),
@@ -436,6 +439,9 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
         },
         initial_count: a(cp::ATTR_INITIAL_COUNT)?,
         annihilations: a(cp::ATTR_ANNIHILATIONS)?,
+        // Absent from checkpoints written before the attribute existed: the trigger then
+        // refers to the initial count until the next annihilation.
+        count_after_annihilation: a(cp::ATTR_COUNT_AFTER_ANNIHILATION).unwrap_or(0),
     };
     Ok(Restored {
         job,

@@ -108,6 +108,7 @@ pub mod checkpoint {
     pub const ATTR_STEP: &str = "step";
     pub const ATTR_INITIAL_COUNT: &str = "initial_count";
     pub const ATTR_ANNIHILATIONS: &str = "annihilations";
+    pub const ATTR_COUNT_AFTER_ANNIHILATION: &str = "count_after_annihilation";
     pub const ATTR_PARTICLES: &str = "particles";
     pub const ATTR_COORDINATES: &str = "coordinates";
     pub const ATTR_CHECKSUM: &str = "checksum";

@@ -81,6 +81,7 @@ impl CellMesh {
     }
 
     /// Key of a particle: group in the top bits, then the (sorted) per-particle cells.
+    #[inline]
     pub fn key(&self, x: &[f64], k: &[f64], id: u64) -> u128 {
         let n = self.n;
         let mut cells = [0u64; 8];
@@ -98,15 +99,23 @@ impl CellMesh {
                 k.iter().sum::<f64>() / n as f64,
             ),
         };
+        // Cell index ⌊v⌋ clamped to [0, count): for v ≥ 0 the truncating cast is the floor,
+        // and negative v (or NaN) goes to 0 as it did through `floor().max(0.0)`, without a
+        // call to `floor`.
         for i in 0..n {
-            let ix =
-                (((x[i] - xm - self.x0) / self.cell_x).floor().max(0.0) as u64).min(self.nx - 1);
-            let ik =
-                (((k[i] - km - self.k0) / self.cell_k).floor().max(0.0) as u64).min(self.nk - 1);
+            let ix = (((x[i] - xm - self.x0) / self.cell_x).max(0.0) as u64).min(self.nx - 1);
+            let ik = (((k[i] - km - self.k0) / self.cell_k).max(0.0) as u64).min(self.nk - 1);
             cells[i] = (ix << self.bits_k) | ik;
         }
         if self.sort {
-            cells.sort_unstable();
+            if n == 2 {
+                // Two cells (the common pair): one comparison.
+                if cells[0] > cells[1] {
+                    cells.swap(0, 1);
+                }
+            } else {
+                cells.sort_unstable();
+            }
         }
         let mut key: u128 = rng::group_of(id) as u128;
         for &c in cells.iter() {

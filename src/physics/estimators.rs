@@ -212,7 +212,8 @@ impl Counts {
 }
 
 /// Estimate and standard error from per-group sums `per_group(g)` (length len each),
-/// normalised by `s0` (per group) and multiplied by `scale`.
+/// normalised by `s0` (per group) and multiplied by `scale`. With one group there is no
+/// spread to measure: the error is NaN.
 fn estimate(
     len: usize,
     groups: usize,
@@ -227,6 +228,10 @@ fn estimate(
     for i in 0..len {
         let sum: f64 = (0..groups).map(|g| per_group(g, i)).sum();
         value[i] = sum / total0 as f64 * scale;
+        if groups < 2 {
+            error[i] = f64::NAN;
+            continue;
+        }
         let est: Vec<f64> = (0..groups)
             .map(|g| per_group(g, i) / s0[g] as f64 * scale)
             .collect();

@@ -81,15 +81,20 @@ impl Store {
     /// Keep the particles whose flag is true (order preserved).
     pub fn retain(&mut self, keep: &[bool]) {
         let n = self.n;
-        let mut w = 0;
-        for (r, &kp) in keep.iter().enumerate() {
+        // The first dropped particle: everything before it stays where it is.
+        let Some(first) = keep.iter().position(|&kp| !kp) else {
+            return;
+        };
+        let mut w = first;
+        for (r, &kp) in keep.iter().enumerate().skip(first + 1) {
             if kp {
-                if w != r {
-                    self.x.copy_within(r * n..(r + 1) * n, w * n);
-                    self.k.copy_within(r * n..(r + 1) * n, w * n);
-                    self.id[w] = self.id[r];
-                    self.sign[w] = self.sign[r];
+                // Element by element: for a few coordinates this beats a call to memmove.
+                for i in 0..n {
+                    self.x[w * n + i] = self.x[r * n + i];
+                    self.k[w * n + i] = self.k[r * n + i];
                 }
+                self.id[w] = self.id[r];
+                self.sign[w] = self.sign[r];
                 w += 1;
             }
         }

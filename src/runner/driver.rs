@@ -178,6 +178,8 @@ fn drive(
     let root = comm.is_root();
     let levels = Levels::new(setup)?;
     let mut coarsest_level = 0u32;
+    // Annihilation buffers, kept from one pass to the next.
+    let mut annihilator = annihilate::Annihilator::default();
     let obs_path = opts.out.join(names::OBSERVABLES_FILE);
     let observe = |st: &State, out: &mut ResultFile, timers: &mut Timers| {
         let t0 = Instant::now();
@@ -199,7 +201,6 @@ fn drive(
         agree(comm, written)?;
         timers.add(Phase::Output, t0);
     }
-    let threshold = (setup.trigger * st.initial_count as f64) as u64;
     let stop_step = match opts.until {
         Some(t) => ((t / setup.dt) - 1e-9).ceil().max(0.0) as u64,
         None => setup.steps,
@@ -267,10 +268,21 @@ fn drive(
         events += t[3 * g] as u64;
         let mut count = t[3 * g + 1] as u64;
         timers.add(Phase::Bookkeeping, t0);
-        if count > threshold.min(setup.budget) {
+        // Annihilate when the global count has grown by the trigger factor since the latest
+        // annihilation (or since t = 0, whichever count is larger), or passes the budget:
+        // docs/method.md §3.
+        let reference = st.initial_count.max(st.count_after_annihilation);
+        let threshold = ((setup.trigger * reference as f64) as u64).min(setup.budget);
+        if count > threshold {
             let t0 = Instant::now();
-            let (rep, level) =
-                annihilate_within_budget(setup, &levels, &mut st.store, st.step, comm);
+            let (rep, level) = annihilate_within_budget(
+                setup,
+                &levels,
+                &mut annihilator,
+                &mut st.store,
+                st.step,
+                comm,
+            );
             if level > coarsest_level {
                 coarsest_level = level;
                 if root {
@@ -306,6 +318,7 @@ fn drive(
                 rep.selection_s + t0.elapsed().as_secs_f64(),
             );
             st.annihilations += 1;
+            st.count_after_annihilation = rep.after;
             count = rep.after;
             bytes_sent.push(8.0 * (rep.words_sent + moved) as f64);
             cells.push(rep.local_cells as f64);

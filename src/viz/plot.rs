@@ -326,17 +326,24 @@ fn names(a: &Path, b: Option<&Path>) -> (String, String) {
     }
 }
 
+/// An error series to draw as a band: `None` when it holds no number (one error group
+/// writes NaN errors).
+fn band(err: Option<&Series>) -> Option<&Series> {
+    err.filter(|e| e.data.iter().any(|v| !v.is_nan()))
+}
+
 fn draw_density(
     root: &Area,
     (file, rf, density): (&Path, &ResultFile, &Series),
     b: Option<&(&Path, ResultFile)>,
     picks: &[usize],
 ) -> Result<()> {
-    let err = optional(rf, file, "density_error", &[rf.x.len()])?;
+    let err = band(optional(rf, file, "density_error", &[rf.x.len()])?);
     let (name_a, name_b) = names(file, b.map(|b| b.0));
     let times: Vec<String> = picks.iter().map(|&t| short(rf.times()[t])).collect();
     let mut title = format!("One-body density n(x) at t = {} fs", times.join(", "));
     let mut curves = Vec::new();
+    let mut berr_shown = false;
     for (i, &t) in picks.iter().enumerate() {
         curves.push(Curve {
             label: if b.is_some() {
@@ -353,7 +360,8 @@ fn draw_density(
     }
     if let Some((bfile, brf)) = b {
         let bd = required(brf, bfile, names::DENSITY.name, &[brf.x.len()])?;
-        let berr = optional(brf, bfile, "density_error", &[brf.x.len()])?;
+        let berr = band(optional(brf, bfile, "density_error", &[brf.x.len()])?);
+        berr_shown = berr.is_some();
         for (i, &t) in picks.iter().enumerate() {
             let bt = snap_times(brf.times(), Some(&[rf.times()[t]]))
                 .with_context(|| format!("{}", bfile.display()))?[0];
@@ -369,7 +377,7 @@ fn draw_density(
         // The legend names the file of each curve (solid, dashed); the title stays short.
         title = format!("One-body density n(x) at t = {} fs", times.join(", "));
     }
-    if err.is_some() || b.is_some_and(|(_, r)| r.series.contains_key("density_error")) {
+    if err.is_some() || berr_shown {
         title.push_str(" (bands: ±1 s.e.)");
     }
     let area = root.titled(&title, (FONT_NAME, TITLE_PX))?;
@@ -420,7 +428,7 @@ fn render_history(
             let mut units = String::new();
             for (i, (f, rf)) in files.iter().enumerate() {
                 if let Some(s) = optional(rf, f, name, &[])? {
-                    let err = optional(rf, f, &format!("{name}_error"), &[])?;
+                    let err = band(optional(rf, f, &format!("{name}_error"), &[])?);
                     units.clone_from(&s.units);
                     curves.push(Curve {
                         label: if i == 0 {
