@@ -81,8 +81,14 @@ fn layer(m: &str) -> Option<u32> {
 #[test]
 fn modules_form_no_cycle_and_respect_the_layers() {
     let g = graph();
-    assert!(g.len() > 40 && g.contains_key("physics::kernel"), "source tree not found");
-    assert!(g["runner::driver"].1.contains("engine::annihilate"), "dependencies not read");
+    assert!(
+        g.len() > 40 && g.contains_key("physics::kernel"),
+        "source tree not found"
+    );
+    assert!(
+        g["runner::driver"].1.contains("engine::annihilate"),
+        "dependencies not read"
+    );
     // Layers: every dependency points to the same or a lower layer.
     for (m, (_, deps)) in &g {
         for d in deps {

@@ -28,13 +28,20 @@ fn bits_for(count: u64) -> u32 {
 impl CellMesh {
     pub fn new(setup: &Setup) -> Result<Self> {
         let width = setup.hi - setup.lo;
+        // Wavevectors are not bounded by k_max (children of particles near ±k_max land up
+        // to one transfer K·Δk beyond it, docs/method.md §2.5), so the k range of the mesh
+        // is widened by the largest transfer of one event, K·Δk (1/nm), on each side:
+        // |k| ≤ k_max + K·Δk ≈ 2 k_max. Beyond this generous bound a particle goes to one
+        // of two overflow cells per x cell (below / above), never into an in-range cell.
+        let reach = setup.k_max + setup.cap as f64 * setup.dk;
         let (x0, xr, k0, kr) = match setup.cells {
-            CellKind::Full => (setup.lo, width, -setup.k_max, 2.0 * setup.k_max),
-            // Deviations from the centre of mass lie within ±L and ±2 k_max.
-            CellKind::Relative => (-width, 2.0 * width, -2.0 * setup.k_max, 4.0 * setup.k_max),
+            CellKind::Full => (setup.lo, width, -reach, 2.0 * reach),
+            // Deviations from the centre of mass lie within ±L and ±2·reach.
+            CellKind::Relative => (-width, 2.0 * width, -2.0 * reach, 4.0 * reach),
         };
         let nx = (xr / setup.cell_x).ceil() as u64;
-        let nk = (kr / setup.cell_k).ceil() as u64;
+        // In-range k cells 1..=nk_in, overflow cells 0 and nk_in + 1.
+        let nk = (kr / setup.cell_k).ceil() as u64 + 2;
         let bits_k = bits_for(nk);
         let bits_one = bits_for(nx) + bits_k;
         let needed = bits_one as usize * setup.n + 16;
@@ -86,8 +93,13 @@ impl CellMesh {
         for i in 0..n {
             let ix =
                 (((x[i] - xm - self.x0) / self.cell_x).floor().max(0.0) as u64).min(self.nx - 1);
-            let ik =
-                (((k[i] - km - self.k0) / self.cell_k).floor().max(0.0) as u64).min(self.nk - 1);
+            // k cell 1 + ⌊(k − k0)/cell_k⌋ in range, 0 below and nk − 1 above the range.
+            let t = ((k[i] - km - self.k0) / self.cell_k).floor();
+            let ik = if t < 0.0 {
+                0
+            } else {
+                (t as u64 + 1).min(self.nk - 1)
+            };
             cells[i] = (ix << self.bits_k) | ik;
         }
         if self.sort {

@@ -7,6 +7,9 @@
 //! event the parent continues; a particle of sign s is added at k + q and one of sign −s at
 //! k − q, where q = MΔk on one particle (one-body term) or (+MΔk, −MΔk) on a pair. Children
 //! start at their birth time and fly to the end of the interval with their own stream.
+//! Wavevectors are continuous and unbounded: a particle or child with |k| > k_max is kept
+//! (removing it alone would change the net sign; docs/method.md §2.5). Only transfers are
+//! capped, |M| ≤ K.
 //! Everything a particle does depends only on its own state, identity and the interval.
 
 use crate::config::job::Boundary;
@@ -21,7 +24,8 @@ use rayon::prelude::*;
 pub struct Tally {
     pub absorbed_left: Vec<i64>,
     pub absorbed_right: Vec<i64>,
-    /// Removed because |k| exceeded k_max.
+    /// Signed count removed because |k| exceeded k_max. Always 0 since wavevectors became
+    /// unbounded (docs/method.md §2.5): kept for the `lost_norm` dataset and checkpoints.
     pub lost_momentum: Vec<i64>,
     /// Accepted generation events and thinning candidates.
     pub events: u64,
@@ -221,10 +225,6 @@ fn flight<const FREE: bool>(
                 }
             }
         }
-        if !FREE && p.k[..n].iter().any(|k| k.abs() > setup.k_max) {
-            tally.lost_momentum[group] += p.sign as i64;
-            return false;
-        }
         if next >= dt {
             return true;
         }
@@ -253,10 +253,6 @@ fn flight<const FREE: bool>(
                 rng::hash(&[setup.seed, tag::CHILD_ID, p.id, interval, births]),
             );
             births += 1;
-            if k[..n].iter().any(|v| v.abs() > setup.k_max) {
-                tally.lost_momentum[group] += child_sign as i64;
-                continue;
-            }
             stack.push(Flying {
                 x: p.x,
                 k,
