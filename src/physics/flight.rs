@@ -2,7 +2,8 @@
 //!
 //! Between events a particle follows the exact classical flight under the drift forces
 //! (dx_i/dt = ħk_i/m, dk_i/dt = −U_f'(x_i)/ħ). Generation events come at rate
-//! Γ(z) = Σ_i γ₁(x_i) + Σ_{i<j} γ₂(x_i − x_j), sampled exactly by thinning: candidates at
+//! Γ(z) = Σ_i γ₁(x_i) + Σ_{i<j} γ₂(x_i − x_j) (γ and the kernel linearly interpolated
+//! between mesh points, see [`rates`]), sampled exactly by thinning: candidates at
 //! rate Γ_max (a bound from the tables), each accepted with probability Γ(z)/Γ_max. At an
 //! event the parent continues; a particle of sign s is added at k + q and one of sign −s at
 //! k − q, where q = MΔk on one particle (one-body term) or (+MΔk, −MΔk) on a pair. Children
@@ -116,8 +117,17 @@ fn boundary(setup: &Setup, x: &mut f64, k: &mut f64) -> Fate {
     }
 }
 
-/// Γ(z) and, when `pick` is given (a uniform in [0, Γ)), the chosen term: one-body term of
-/// particle i → (i, None); pair (i, j) → (i, Some(j)).
+/// Γ(z) and, when `pick` is given (a uniform in [0, Γ_max)), the chosen term and kernel row:
+/// one-body term of particle i → (i, None, row); pair (i, j) → (i, Some(j), row).
+///
+/// Each term's rate is the linear interpolation γ(x) = (1 − t)γ_j + t γ_{j+1} between the
+/// two mesh points around its coordinate (`KernelTable::interpolation`), and its interval
+/// [S, S + γ(x)) of the running sum is split into [S, S + (1 − t)γ_j) for row j and the rest
+/// for row j + 1. A uniform `pick` therefore selects (term, row r) with probability
+/// w_r γ_r / Γ_max, and M is then drawn from V_w⁺(x_r, ·)/γ_r: the event generates transfer M
+/// at rate (1 − t)V_w⁺(x_j, M) + t V_w⁺(x_{j+1}, M), which is the same as choosing row j with
+/// probability 1 − t and row j + 1 with probability t at each candidate (docs/method.md §2.4).
+/// The random number is the particle's own `pick`; no other draw is made.
 #[inline]
 fn rates(
     setup: &Setup,
@@ -128,10 +138,12 @@ fn rates(
     let mut total = 0.0;
     if let Some(t) = &setup.table1 {
         for (i, &xi) in x.iter().enumerate() {
-            if let Some(c) = t.cell(xi) {
-                total += t.gamma[c];
-                if pick.is_some_and(|u| u < total) {
-                    return (total, Some((i, None, c)));
+            if let Some(rows) = t.interpolation(xi) {
+                for (row, w) in rows {
+                    total += w * t.gamma[row];
+                    if pick.is_some_and(|u| u < total) {
+                        return (total, Some((i, None, row)));
+                    }
                 }
             }
         }
@@ -139,10 +151,12 @@ fn rates(
     if let Some(t) = &setup.table2 {
         for i in 0..n {
             for j in i + 1..n {
-                if let Some(c) = t.cell(setup.separation(x[i], x[j])) {
-                    total += t.gamma[c];
-                    if pick.is_some_and(|u| u < total) {
-                        return (total, Some((i, Some(j), c)));
+                if let Some(rows) = t.interpolation(setup.separation(x[i], x[j])) {
+                    for (row, w) in rows {
+                        total += w * t.gamma[row];
+                        if pick.is_some_and(|u| u < total) {
+                            return (total, Some((i, Some(j), row)));
+                        }
                     }
                 }
             }

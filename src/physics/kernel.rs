@@ -7,6 +7,9 @@
 //! in 1/fs, with w the C^∞ flat-top window. The integrand is periodic and smooth, so the
 //! trapezoid rule on n points (one FFT per mesh point) is spectrally accurate. The table
 //! holds V_w for |M| ≤ K, γ(x) = Σ_M max(V_w, 0), and an alias sampler of M per point.
+//! Between mesh points (cell centres) the kernel is interpolated linearly; flight samples
+//! the interpolated kernel exactly by choosing one of the two neighbouring rows at random
+//! with the interpolation weights ([`KernelTable::interpolation`]).
 
 use crate::physics::units::HBAR;
 use rand::Rng;
@@ -159,10 +162,37 @@ impl KernelTable {
         }
     }
 
-    /// γ at `x` (0 outside the table), 1/fs.
+    /// Linear interpolation between the rows at the mesh points (cell centres)
+    /// x_j = lo + (j + ½)·dx: for x_j ≤ x < x_{j+1}, with t = (x − x_j)/dx, the rows j and
+    /// j + 1 with weights 1 − t and t, so that V_w(x, M) ≈ (1 − t)V_w(x_j, M) + t V_w(x_{j+1}, M)
+    /// (error O(dx²) instead of the O(dx) of the piecewise-constant row). In the outer half
+    /// cells (before the first or after the last centre) the edge row with weight 1 (and
+    /// weight 0 on its neighbour). None outside the table.
+    #[inline]
+    pub fn interpolation(&self, x: f64) -> Option<[(usize, f64); 2]> {
+        let c = (x - self.lo) / self.dx;
+        if !(c >= 0.0 && c < self.points as f64) {
+            return None;
+        }
+        let u = c - 0.5;
+        if u <= 0.0 {
+            return Some([(0, 1.0), (0, 0.0)]);
+        }
+        let j = u as usize;
+        if j + 1 >= self.points {
+            let last = self.points - 1;
+            return Some([(last, 1.0), (last, 0.0)]);
+        }
+        let t = u - j as f64;
+        Some([(j, 1.0 - t), (j + 1, t)])
+    }
+
+    /// γ at `x` (0 outside the table), linearly interpolated between mesh points, 1/fs.
     #[inline]
     pub fn gamma_at(&self, x: f64) -> f64 {
-        self.cell(x).map_or(0.0, |j| self.gamma[j])
+        self.interpolation(x).map_or(0.0, |r| {
+            r[0].1 * self.gamma[r[0].0] + r[1].1 * self.gamma[r[1].0]
+        })
     }
 
     /// V_w(x_j, M) row of cell j (index M + K).
@@ -262,5 +292,54 @@ mod tests {
             );
         }
         assert!(t.tail < 1e-8, "tail {}", t.tail);
+
+        // Between mesh points flight uses the linear interpolation of the two neighbouring
+        // rows (docs/method.md §2.3): its first moment is the linear interpolation of −U'/ħ,
+        // within dx²/8 · max|U'''|/ħ of −U'(x)/ħ (error bound of linear interpolation), plus
+        // the 1e-5 table error above. The row of the cell centre alone would be off by up to
+        // dx/2 · max|U''|/ħ, several times more here.
+        let d2_peak = h / (b * b); // max |U''| of the Gaussian, at x = 0
+        let bound = t.dx * t.dx / 8.0 * peak(&d3u) / HBAR + 1e-5 * s1;
+        assert!(bound < 0.5 * (0.5 * t.dx * d2_peak / HBAR));
+        for j in 0..t.points - 1 {
+            for frac in [0.1, 0.37, 0.5, 0.83] {
+                let x = t.lo + (j as f64 + 0.5 + frac) * t.dx;
+                let rows = t.interpolation(x).unwrap();
+                assert_eq!((rows[0].0, rows[1].0), (j, j + 1));
+                let xi = rows[0].1 * (t.lo + (j as f64 + 0.5) * t.dx)
+                    + rows[1].1 * (t.lo + (j as f64 + 1.5) * t.dx);
+                assert!((xi - x).abs() < 1e-9 && (rows[0].1 + rows[1].1 - 1.0).abs() < 1e-12);
+                let m1: f64 = rows
+                    .iter()
+                    .map(|&(r, w)| {
+                        w * t
+                            .row(r)
+                            .iter()
+                            .enumerate()
+                            .map(|(i, v)| (i as f64 - cap as f64) * dk * v)
+                            .sum::<f64>()
+                    })
+                    .sum();
+                assert!(
+                    (m1 + du(x) / HBAR).abs() < bound,
+                    "x={x}: {m1} vs {}",
+                    -du(x) / HBAR
+                );
+            }
+        }
+    }
+
+    /// Outer half cells use the edge row alone; outside the table there is no row.
+    #[test]
+    fn interpolation_at_the_edges() {
+        let u = |x: f64| 0.1 * (-x * x).exp();
+        let t = KernelTable::build(&u, 0.0, 1.0, 4, 8.0, 1.0, 10);
+        assert_eq!(t.interpolation(0.2), Some([(0, 1.0), (0, 0.0)]));
+        assert_eq!(t.interpolation(3.7), Some([(3, 1.0), (3, 0.0)]));
+        assert_eq!(t.interpolation(-0.1), None);
+        assert_eq!(t.interpolation(4.0), None);
+        let r = t.interpolation(1.75).unwrap();
+        assert_eq!((r[0].0, r[1].0), (1, 2));
+        assert!((r[1].1 - 0.25).abs() < 1e-12);
     }
 }
