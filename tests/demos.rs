@@ -102,16 +102,17 @@ fn barrier_packet_tunnels() {
     );
 }
 
-/// Three trapped fermions: reflecting walls, so the norm only changes through the
-/// momentum cap (negligible), and the energy is conserved within its error.
+/// Three trapped fermions: reflecting walls and sign-conserving events, so the norm is
+/// exactly 1 (nothing is removed at the momentum cap), and the energy is conserved within
+/// its error.
 #[test]
 fn three_fermions_in_the_trap() {
     let r = run_demo("three-fermions-trap.toml");
     let s = &r.series;
     let (e, ee) = (&s["energy"].data, &s["energy_error"].data);
     for i in 0..r.times().len() {
-        assert!((s["norm"].data[i] + s["lost_norm"].data[i] - 1.0).abs() < 1e-12);
-        assert!(s["lost_norm"].data[i].abs() < 1e-3);
+        assert_eq!(s["norm"].data[i], 1.0);
+        assert_eq!(s["lost_norm"].data[i], 0.0);
         assert!(
             (e[i] - e[0]).abs() < 5.0 * (ee[i] + ee[0]),
             "t = {}: {} vs {}",

@@ -171,9 +171,9 @@ fn sign_bookkeeping_is_exact() {
 /// A closed box (reflecting or periodic) with a kernel potential: generation events and
 /// annihilation conserve the net sign and reflection or wrapping never changes a sign, so the
 /// norm Σs/S₀ (an integer ratio) is exactly 1 at every output and nothing is lost at the
-/// momentum cap. The bump is narrow (width 0.7 nm) and k_max small (1.5/nm, K = 28), so tens
-/// of thousands of children are born beyond k_max: a one-sided removal of them would move the
-/// norm off 1 by far more than a rounding error (1.008 to 1.013 at 32–40 fs in the old code).
+/// momentum cap. The bump is narrow (width 0.7 nm) and k_max small (1.5/nm), so many
+/// children are born beyond k_max: the old one-sided removal of them moved the norm to
+/// 1.008–1.013 at 32–40 fs here (both boxes).
 #[test]
 fn closed_box_keeps_the_net_sign() {
     for boundary in ["reflecting", "periodic"] {

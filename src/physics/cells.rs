@@ -29,11 +29,15 @@ impl CellMesh {
     pub fn new(setup: &Setup) -> Result<Self> {
         let width = setup.hi - setup.lo;
         // Wavevectors are not bounded by k_max (children of particles near ±k_max land up
-        // to one transfer K·Δk beyond it, docs/method.md §2.5), so the k range of the mesh
+        // to one transfer K·Δk ≤ k_max beyond it, docs/method.md §2.5), so the k range of the mesh
         // is widened by the largest transfer of one event, K·Δk (1/nm), on each side:
         // |k| ≤ k_max + K·Δk ≈ 2 k_max. Beyond this generous bound a particle goes to one
         // of two overflow cells per x cell (below / above), never into an in-range cell.
-        let reach = setup.k_max + setup.cap as f64 * setup.dk;
+        let largest = [&setup.table1, &setup.table2]
+            .iter()
+            .filter_map(|t| t.as_ref().map(|t| t.cap as f64 * t.dk))
+            .fold(0.0, f64::max);
+        let reach = setup.k_max + largest;
         let (x0, xr, k0, kr) = match setup.cells {
             CellKind::Full => (setup.lo, width, -reach, 2.0 * reach),
             // Deviations from the centre of mass lie within ±L and ±2·reach.

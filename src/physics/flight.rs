@@ -6,7 +6,8 @@
 //! between mesh points, see [`rates`]), sampled exactly by thinning: candidates at
 //! rate Γ_max (a bound from the tables), each accepted with probability Γ(z)/Γ_max. At an
 //! event the parent continues; a particle of sign s is added at k + q and one of sign −s at
-//! k − q, where q = MΔk on one particle (one-body term) or (+MΔk, −MΔk) on a pair. Children
+//! k − q, where q = MΔk on one particle (one-body term) or (+MΔk, −MΔk) on a pair (Δk = π/P of
+//! the term's table). Children
 //! start at their birth time and fly to the end of the interval with their own stream.
 //! Wavevectors are continuous and unbounded: a particle or child with |k| > k_max is kept
 //! (removing it alone would change the net sign; docs/method.md §2.5). Only transfers are
@@ -253,9 +254,10 @@ fn flight<const FREE: bool>(
             setup.table1.as_ref()
         } else {
             setup.table2.as_ref()
-        };
-        let m = table.expect("a chosen term has a table").sample(cell, rs);
-        let q = m as f64 * setup.dk;
+        }
+        .expect("a chosen term has a table");
+        // Each table has its own lattice, Δk = π/P (docs/method.md §2.3).
+        let q = table.sample(cell, rs) as f64 * table.dk;
         for (child_sign, dir) in [(p.sign, 1.0), (-p.sign, -1.0)] {
             let mut k = p.k;
             k[i] += dir * q;
