@@ -84,9 +84,24 @@ fn report(setup: &Setup, ranks: usize) -> Result<String> {
     )?;
     writeln!(
         w,
-        "transfer quantum Δk = π/L_c = {:.6} 1/nm; momentum cap K = {} (k_max = {} 1/nm)",
-        setup.dk, setup.cap, setup.k_max
+        "transfer lattice (one-body): period P = {:.2} nm, Δk = π/P = {:.6} 1/nm; momentum cap K = {} (k_max = {} 1/nm)",
+        setup.period, setup.dk, setup.cap, setup.k_max
     )?;
+    for (name, t) in [("one-body", &setup.table1), ("pair", &setup.table2)] {
+        if let Some(t) = t {
+            writeln!(
+                w,
+                "{name} kernel table: {} points × {} transfers (P = {:.2} nm = {:.2} L_c, Δk = {:.6} 1/nm, K = {}), {:.1} MiB",
+                t.points,
+                2 * t.cap + 1,
+                t.period,
+                t.period / setup.lc,
+                t.dk,
+                t.cap,
+                t.bytes() as f64 / (1u64 << 20) as f64
+            )?;
+        }
+    }
     let g1 = setup.table1.as_ref().map_or(0.0, |t| t.gamma_max);
     let g2 = setup.table2.as_ref().map_or(0.0, |t| t.gamma_max);
     writeln!(

@@ -116,7 +116,9 @@ pub enum Pair {
 #[derive(Deserialize, Serialize, Clone, Debug)]
 #[serde(deny_unknown_fields)]
 pub struct Numerics {
-    /// Coherence length L_c, nm (unset: derived from the orbitals, `physics::defaults`).
+    /// Coherence length L_c, nm: width of the kernel window (transfers are multiples of
+    /// Δk = π/P with the lattice period P ≥ L_c, docs/method.md §2.3). Unset: derived from
+    /// the orbitals, `physics::defaults`.
     #[serde(default = "unset")]
     pub coherence_length: f64,
     /// Roll-off ℓ of the kernel window, nm (default L_c/8).

@@ -38,13 +38,24 @@ impl CellMesh {
         let scale = f64::from(1u32 << level.min(20));
         let (cell_x, cell_k) = (setup.cell_x * scale, setup.cell_k * scale);
         let width = setup.hi - setup.lo;
+        // Wavevectors are not bounded by k_max (children of particles near ±k_max land up
+        // to one transfer K·Δk ≤ k_max beyond it, docs/method.md §2.5), so the k range of the mesh
+        // is widened by the largest transfer of one event, K·Δk (1/nm), on each side:
+        // |k| ≤ k_max + K·Δk ≈ 2 k_max. Beyond this generous bound a particle goes to one
+        // of two overflow cells per x cell (below / above), never into an in-range cell.
+        let largest = [&setup.table1, &setup.table2]
+            .iter()
+            .filter_map(|t| t.as_ref().map(|t| t.cap as f64 * t.dk))
+            .fold(0.0, f64::max);
+        let reach = setup.k_max + largest;
         let (x0, xr, k0, kr) = match setup.cells {
-            CellKind::Full => (setup.lo, width, -setup.k_max, 2.0 * setup.k_max),
-            // Deviations from the centre of mass lie within ±L and ±2 k_max.
-            CellKind::Relative => (-width, 2.0 * width, -2.0 * setup.k_max, 4.0 * setup.k_max),
+            CellKind::Full => (setup.lo, width, -reach, 2.0 * reach),
+            // Deviations from the centre of mass lie within ±L and ±2·reach.
+            CellKind::Relative => (-width, 2.0 * width, -2.0 * reach, 4.0 * reach),
         };
         let nx = (xr / cell_x).ceil().max(1.0) as u64;
-        let nk = (kr / cell_k).ceil().max(1.0) as u64;
+        // In-range k cells 1..=nk_in, overflow cells 0 and nk_in + 1.
+        let nk = (kr / cell_k).ceil().max(1.0) as u64 + 2;
         let bits_k = bits_for(nk);
         let bits_one = bits_for(nx) + bits_k;
         let needed = bits_one as usize * setup.n + 16;
@@ -104,7 +115,14 @@ impl CellMesh {
         // call to `floor`.
         for i in 0..n {
             let ix = (((x[i] - xm - self.x0) / self.cell_x).max(0.0) as u64).min(self.nx - 1);
-            let ik = (((k[i] - km - self.k0) / self.cell_k).max(0.0) as u64).min(self.nk - 1);
+            // k cell 1 + ⌊(k − k0)/cell_k⌋ in range, 0 below and nk − 1 above the range (for
+            // t ≥ 0 the truncating cast is the floor).
+            let t = (k[i] - km - self.k0) / self.cell_k;
+            let ik = if t < 0.0 {
+                0
+            } else {
+                (t as u64 + 1).min(self.nk - 1)
+            };
             cells[i] = (ix << self.bits_k) | ik;
         }
         if self.sort {

@@ -2,11 +2,16 @@
 //!
 //! Between events a particle follows the exact classical flight under the drift forces
 //! (dx_i/dt = ħk_i/m, dk_i/dt = −U_f'(x_i)/ħ). Generation events come at rate
-//! Γ(z) = Σ_i γ₁(x_i) + Σ_{i<j} γ₂(x_i − x_j), sampled exactly by thinning: candidates at
+//! Γ(z) = Σ_i γ₁(x_i) + Σ_{i<j} γ₂(x_i − x_j) (γ and the kernel linearly interpolated
+//! between mesh points, see [`rates`]), sampled exactly by thinning: candidates at
 //! rate Γ_max (a bound from the tables), each accepted with probability Γ(z)/Γ_max. At an
 //! event the parent continues; a particle of sign s is added at k + q and one of sign −s at
-//! k − q, where q = MΔk on one particle (one-body term) or (+MΔk, −MΔk) on a pair. Children
+//! k − q, where q = MΔk on one particle (one-body term) or (+MΔk, −MΔk) on a pair (Δk = π/P of
+//! the term's table). Children
 //! start at their birth time and fly to the end of the interval with their own stream.
+//! Wavevectors are continuous and unbounded: a particle or child with |k| > k_max is kept
+//! (removing it alone would change the net sign; docs/method.md §2.5). Only transfers are
+//! capped, |M| ≤ K.
 //! Everything a particle does depends only on its own state, identity and the interval.
 
 use crate::config::job::Boundary;
@@ -21,7 +26,8 @@ use rayon::prelude::*;
 pub struct Tally {
     pub absorbed_left: Vec<i64>,
     pub absorbed_right: Vec<i64>,
-    /// Removed because |k| exceeded k_max.
+    /// Signed count removed because |k| exceeded k_max. Always 0 since wavevectors became
+    /// unbounded (docs/method.md §2.5): kept for the `lost_norm` dataset and checkpoints.
     pub lost_momentum: Vec<i64>,
     /// Accepted generation events and thinning candidates.
     pub events: u64,
@@ -112,8 +118,17 @@ fn boundary(setup: &Setup, x: &mut f64, k: &mut f64) -> Fate {
     }
 }
 
-/// Γ(z) and, when `pick` is given (a uniform in [0, Γ)), the chosen term: one-body term of
-/// particle i → (i, None); pair (i, j) → (i, Some(j)).
+/// Γ(z) and, when `pick` is given (a uniform in [0, Γ_max)), the chosen term and kernel row:
+/// one-body term of particle i → (i, None, row); pair (i, j) → (i, Some(j), row).
+///
+/// Each term's rate is the linear interpolation γ(x) = (1 − t)γ_j + t γ_{j+1} between the
+/// two mesh points around its coordinate (`KernelTable::interpolation`), and its interval
+/// [S, S + γ(x)) of the running sum is split into [S, S + (1 − t)γ_j) for row j and the rest
+/// for row j + 1. A uniform `pick` therefore selects (term, row r) with probability
+/// w_r γ_r / Γ_max, and M is then drawn from V_w⁺(x_r, ·)/γ_r: the event generates transfer M
+/// at rate (1 − t)V_w⁺(x_j, M) + t V_w⁺(x_{j+1}, M), which is the same as choosing row j with
+/// probability 1 − t and row j + 1 with probability t at each candidate (docs/method.md §2.4).
+/// The random number is the particle's own `pick`; no other draw is made.
 #[inline]
 fn rates(
     setup: &Setup,
@@ -124,10 +139,12 @@ fn rates(
     let mut total = 0.0;
     if let Some(t) = &setup.table1 {
         for (i, &xi) in x.iter().enumerate() {
-            if let Some(c) = t.cell(xi) {
-                total += t.gamma[c];
-                if pick.is_some_and(|u| u < total) {
-                    return (total, Some((i, None, c)));
+            if let Some(rows) = t.interpolation(xi) {
+                for (row, w) in rows {
+                    total += w * t.gamma[row];
+                    if pick.is_some_and(|u| u < total) {
+                        return (total, Some((i, None, row)));
+                    }
                 }
             }
         }
@@ -135,10 +152,12 @@ fn rates(
     if let Some(t) = &setup.table2 {
         for i in 0..n {
             for j in i + 1..n {
-                if let Some(c) = t.cell(setup.separation(x[i], x[j])) {
-                    total += t.gamma[c];
-                    if pick.is_some_and(|u| u < total) {
-                        return (total, Some((i, Some(j), c)));
+                if let Some(rows) = t.interpolation(setup.separation(x[i], x[j])) {
+                    for (row, w) in rows {
+                        total += w * t.gamma[row];
+                        if pick.is_some_and(|u| u < total) {
+                            return (total, Some((i, Some(j), row)));
+                        }
                     }
                 }
             }
@@ -221,10 +240,6 @@ fn flight<const FREE: bool>(
                 }
             }
         }
-        if !FREE && p.k[..n].iter().any(|k| k.abs() > setup.k_max) {
-            tally.lost_momentum[group] += p.sign as i64;
-            return false;
-        }
         if next >= dt {
             return true;
         }
@@ -239,9 +254,10 @@ fn flight<const FREE: bool>(
             setup.table1.as_ref()
         } else {
             setup.table2.as_ref()
-        };
-        let m = table.expect("a chosen term has a table").sample(cell, rs);
-        let q = m as f64 * setup.dk;
+        }
+        .expect("a chosen term has a table");
+        // Each table has its own lattice, Δk = π/P (docs/method.md §2.3).
+        let q = table.sample(cell, rs) as f64 * table.dk;
         for (child_sign, dir) in [(p.sign, 1.0), (-p.sign, -1.0)] {
             let mut k = p.k;
             k[i] += dir * q;
@@ -253,10 +269,6 @@ fn flight<const FREE: bool>(
                 rng::hash(&[setup.seed, tag::CHILD_ID, p.id, interval, births]),
             );
             births += 1;
-            if k[..n].iter().any(|v| v.abs() > setup.k_max) {
-                tally.lost_momentum[group] += child_sign as i64;
-                continue;
-            }
             stack.push(Flying {
                 x: p.x,
                 k,

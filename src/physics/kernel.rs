@@ -1,12 +1,19 @@
 //! Windowed Wigner kernel tables on a mesh (docs/method.md §2).
 //!
-//! For a one-dimensional potential U the transfer rate to k + MΔk (Δk = π/L_c) is
+//! For a one-dimensional potential U the transfer rate to k + MΔk (Δk = π/P) is
 //!
-//!   V_w(x, M) = −(1/(ħ L_c)) ∫_{−L_c/2}^{L_c/2} ds w(s) sin(2πMs/L_c) [U(x + s) − U(x − s)]
+//!   V_w(x, M) = −(1/(ħ P)) ∫_{−P/2}^{P/2} ds w(s) sin(2πMs/P) [U(x + s) − U(x − s)]
 //!
-//! in 1/fs, with w the C^∞ flat-top window. The integrand is periodic and smooth, so the
-//! trapezoid rule on n points (one FFT per mesh point) is spectrally accurate. The table
+//! in 1/fs, with w the C^∞ flat-top window of width L_c (zero for |s| ≥ L_c/2) and P ≥ L_c
+//! the period of the transfer lattice: the sine series reproduces the windowed bracket for
+//! |s| < P/2 and repeats it with period P in s, so a coherence of half-length |s| sees no
+//! phantom ("image") potential while |s| < P − L_c/2 (docs/method.md §2.3). The integrand is
+//! periodic and smooth, so the trapezoid rule on n points (one FFT per mesh point) is
+//! spectrally accurate. The table
 //! holds V_w for |M| ≤ K, γ(x) = Σ_M max(V_w, 0), and an alias sampler of M per point.
+//! Between mesh points (cell centres) the kernel is interpolated linearly; flight samples
+//! the interpolated kernel exactly by choosing one of the two neighbouring rows at random
+//! with the interpolation weights ([`KernelTable::interpolation`]).
 
 use crate::physics::units::HBAR;
 use rand::Rng;
@@ -51,7 +58,9 @@ pub struct KernelTable {
     pub points: usize,
     /// Transfer cap K: |M| ≤ K.
     pub cap: usize,
-    /// Transfer quantum Δk = π/L_c, 1/nm.
+    /// Period of the transfer lattice in s, P ≥ L_c, nm.
+    pub period: f64,
+    /// Transfer quantum Δk = π/P, 1/nm.
     pub dk: f64,
     /// V_w(x_j, M) for M = −K..K, row-major by point, 1/fs.
     pub values: Vec<f64>,
@@ -64,7 +73,10 @@ pub struct KernelTable {
 }
 
 impl KernelTable {
-    /// Build the table of `u` (eV, function of nm) on `points` cells starting at `lo`.
+    /// Build the table of `u` (eV, function of nm) on `points` cells starting at `lo`, with
+    /// window width `lc` and roll-off `rolloff` (nm), lattice period `period` ≥ `lc` (nm,
+    /// Δk = π/period) and cap `cap` (|M| ≤ K).
+    #[allow(clippy::too_many_arguments)]
     pub fn build(
         u: &(dyn Fn(f64) -> f64 + Sync),
         lo: f64,
@@ -72,16 +84,21 @@ impl KernelTable {
         points: usize,
         lc: f64,
         rolloff: f64,
+        period: f64,
         cap: usize,
     ) -> Self {
+        assert!(
+            period >= lc,
+            "lattice period {period} nm below L_c = {lc} nm"
+        );
         let n = (8 * cap + 8)
-            .max((4.0 * lc / dx).ceil() as usize)
+            .max((4.0 * period / dx).ceil() as usize)
             .max(64)
             .next_power_of_two();
         let fft = FftPlanner::<f64>::new().plan_fft_forward(n);
-        let ds = lc / n as f64;
+        let ds = period / n as f64;
         let win: Vec<f64> = (0..n)
-            .map(|j| window(-0.5 * lc + j as f64 * ds, lc, rolloff))
+            .map(|j| window(-0.5 * period + j as f64 * ds, lc, rolloff))
             .collect();
         let m_ext = (n / 2 - 1).min(4 * cap.max(1));
         let width = 2 * cap + 1;
@@ -91,7 +108,7 @@ impl KernelTable {
                 let x = lo + (j as f64 + 0.5) * dx;
                 let mut buf: Vec<Complex64> = (0..n)
                     .map(|i| {
-                        let s = -0.5 * lc + i as f64 * ds;
+                        let s = -0.5 * period + i as f64 * ds;
                         Complex64::new(win[i] * (u(x + s) - u(x - s)), 0.0)
                     })
                     .collect();
@@ -135,7 +152,8 @@ impl KernelTable {
             dx,
             points,
             cap,
-            dk: std::f64::consts::PI / lc,
+            period,
+            dk: std::f64::consts::PI / period,
             values,
             gamma,
             gamma_max,
@@ -159,10 +177,37 @@ impl KernelTable {
         }
     }
 
-    /// γ at `x` (0 outside the table), 1/fs.
+    /// Linear interpolation between the rows at the mesh points (cell centres)
+    /// x_j = lo + (j + ½)·dx: for x_j ≤ x < x_{j+1}, with t = (x − x_j)/dx, the rows j and
+    /// j + 1 with weights 1 − t and t, so that V_w(x, M) ≈ (1 − t)V_w(x_j, M) + t V_w(x_{j+1}, M)
+    /// (error O(dx²) instead of the O(dx) of the piecewise-constant row). In the outer half
+    /// cells (before the first or after the last centre) the edge row with weight 1 (and
+    /// weight 0 on its neighbour). None outside the table.
+    #[inline]
+    pub fn interpolation(&self, x: f64) -> Option<[(usize, f64); 2]> {
+        let c = (x - self.lo) / self.dx;
+        if !(c >= 0.0 && c < self.points as f64) {
+            return None;
+        }
+        let u = c - 0.5;
+        if u <= 0.0 {
+            return Some([(0, 1.0), (0, 0.0)]);
+        }
+        let j = u as usize;
+        if j + 1 >= self.points {
+            let last = self.points - 1;
+            return Some([(last, 1.0), (last, 0.0)]);
+        }
+        let t = u - j as f64;
+        Some([(j, 1.0 - t), (j + 1, t)])
+    }
+
+    /// γ at `x` (0 outside the table), linearly interpolated between mesh points, 1/fs.
     #[inline]
     pub fn gamma_at(&self, x: f64) -> f64 {
-        self.cell(x).map_or(0.0, |j| self.gamma[j])
+        self.interpolation(x).map_or(0.0, |r| {
+            r[0].1 * self.gamma[r[0].0] + r[1].1 * self.gamma[r[1].0]
+        })
     }
 
     /// V_w(x_j, M) row of cell j (index M + K).
@@ -202,6 +247,13 @@ mod tests {
     /// Σ_M MΔk V_w = −U'/ħ and Σ_M (MΔk)³ V_w = U'''/(4ħ).
     #[test]
     fn moment_identities_on_a_gaussian_bump() {
+        // Lattice period P = L_c (Δk = π/L_c, K = 400) and P = 2.5 L_c (Δk 2.5× finer,
+        // K = 1000: the same k range).
+        moment_identities(1.0, 400);
+        moment_identities(2.5, 1000);
+    }
+
+    fn moment_identities(period_factor: f64, cap: usize) {
         // Gaussian bump of width b, L_c = 10 b, ℓ = L_c/8 (the setting of docs/method.md §2).
         let (b, h) = (2.0, 0.2);
         let u = move |x: f64| h * (-x * x / (2.0 * b * b)).exp();
@@ -209,9 +261,9 @@ mod tests {
         let d3u =
             move |x: f64| u(x) * (3.0 * x / (b * b * b * b) - x * x * x / (b * b * b * b * b * b));
         let lc = 10.0 * b;
-        let dk = std::f64::consts::PI / lc;
-        let cap = 400;
-        let t = KernelTable::build(&u, -8.125, 0.25, 65, lc, lc / 8.0, cap);
+        let period = period_factor * lc;
+        let dk = std::f64::consts::PI / period;
+        let t = KernelTable::build(&u, -8.125, 0.25, 65, lc, lc / 8.0, period, cap);
         let peak = |f: &dyn Fn(f64) -> f64| {
             (0..4000)
                 .map(|i| f(-8.0 + i as f64 * 0.004).abs())
@@ -262,5 +314,101 @@ mod tests {
             );
         }
         assert!(t.tail < 1e-8, "tail {}", t.tail);
+
+        // Between mesh points flight uses the linear interpolation of the two neighbouring
+        // rows (docs/method.md §2.3): its first moment is the linear interpolation of −U'/ħ,
+        // within dx²/8 · max|U'''|/ħ of −U'(x)/ħ (error bound of linear interpolation), plus
+        // the 1e-5 table error above. The row of the cell centre alone would be off by up to
+        // dx/2 · max|U''|/ħ, several times more here.
+        let d2_peak = h / (b * b); // max |U''| of the Gaussian, at x = 0
+        let bound = t.dx * t.dx / 8.0 * peak(&d3u) / HBAR + 1e-5 * s1;
+        assert!(bound < 0.5 * (0.5 * t.dx * d2_peak / HBAR));
+        for j in 0..t.points - 1 {
+            for frac in [0.1, 0.37, 0.5, 0.83] {
+                let x = t.lo + (j as f64 + 0.5 + frac) * t.dx;
+                let rows = t.interpolation(x).unwrap();
+                assert_eq!((rows[0].0, rows[1].0), (j, j + 1));
+                let xi = rows[0].1 * (t.lo + (j as f64 + 0.5) * t.dx)
+                    + rows[1].1 * (t.lo + (j as f64 + 1.5) * t.dx);
+                assert!((xi - x).abs() < 1e-9 && (rows[0].1 + rows[1].1 - 1.0).abs() < 1e-12);
+                let m1: f64 = rows
+                    .iter()
+                    .map(|&(r, w)| {
+                        w * t
+                            .row(r)
+                            .iter()
+                            .enumerate()
+                            .map(|(i, v)| (i as f64 - cap as f64) * dk * v)
+                            .sum::<f64>()
+                    })
+                    .sum();
+                assert!(
+                    (m1 + du(x) / HBAR).abs() < bound,
+                    "x={x}: {m1} vs {}",
+                    -du(x) / HBAR
+                );
+            }
+        }
+    }
+
+    /// Outer half cells use the edge row alone; outside the table there is no row.
+    #[test]
+    fn interpolation_at_the_edges() {
+        let u = |x: f64| 0.1 * (-x * x).exp();
+        let t = KernelTable::build(&u, 0.0, 1.0, 4, 8.0, 1.0, 8.0, 10);
+        assert_eq!(t.interpolation(0.2), Some([(0, 1.0), (0, 0.0)]));
+        assert_eq!(t.interpolation(3.7), Some([(3, 1.0), (3, 0.0)]));
+        assert_eq!(t.interpolation(-0.1), None);
+        assert_eq!(t.interpolation(4.0), None);
+        let r = t.interpolation(1.75).unwrap();
+        assert_eq!((r[0].0, r[1].0), (1, 2));
+        assert!((r[1].1 - 0.25).abs() < 1e-12);
+    }
+
+    /// The sine series of a row, G(s) = −2ħ Σ_{M≥1} V_w(x, M) sin(2πMs/P), is the windowed
+    /// bracket w(s)[U(x + s) − U(x − s)] for |s| < P/2 and repeats with period P. With
+    /// P = L_c a coherence of half-length L_c − x sees the bracket at −x (a phantom potential
+    /// L_c away); with P = 2 L_c it sees zero, as the windowed continuum kernel does.
+    #[test]
+    fn a_longer_lattice_period_removes_the_images() {
+        let (b, h, x) = (1.0, 0.2, 1.5);
+        let u = move |y: f64| h * (-y * y / (2.0 * b * b)).exp();
+        let lc = 20.0;
+        let series = |t: &KernelTable, s: f64| -> f64 {
+            let row = t.row(0);
+            -2.0 * HBAR
+                * (1..=t.cap)
+                    .map(|m| {
+                        row[t.cap + m]
+                            * (2.0 * std::f64::consts::PI * m as f64 * s / t.period).sin()
+                    })
+                    .sum::<f64>()
+        };
+        let bracket = |s: f64| window(s, lc, lc / 8.0) * (u(x + s) - u(x - s));
+        // The series converges faster than any power (smooth periodic bracket): 1e-6 of the
+        // bracket's peak (about 0.2 eV) at K = 40 per L_c/2 of period, i.e. k range 2π/b.
+        let tol = 1e-6;
+        for (factor, phantom) in [(1.0, true), (2.0, false)] {
+            let period = factor * lc;
+            let cap = (4.0 * period) as usize;
+            let t = KernelTable::build(&u, x - 0.5, 1.0, 1, lc, lc / 8.0, period, cap);
+            for s in [-1.7, 0.6, 2.0, 4.0] {
+                assert!(
+                    (series(&t, s) - bracket(s)).abs() < tol,
+                    "P = {period}, s = {s}"
+                );
+            }
+            // Half-length L_c − x = 18.5 nm: beyond the window (L_c/2 = 10 nm), inside
+            // P/2 only for P = 2 L_c; its image at −x is where the bracket peaks.
+            let far = lc - x;
+            let image = bracket(far - lc);
+            assert!(image.abs() > 0.1, "the test needs a visible image: {image}");
+            let g = series(&t, far);
+            if phantom {
+                assert!((g - image).abs() < tol, "P = L_c: {g} vs image {image}");
+            } else {
+                assert!(g.abs() < tol, "P = 2 L_c: phantom {g}");
+            }
+        }
     }
 }

@@ -31,7 +31,11 @@ pub struct Setup {
     /// Coherence length and window roll-off, nm.
     pub lc: f64,
     pub rolloff: f64,
-    /// Transfer quantum Δk = π/L_c, 1/nm, and cap K = ⌊k_max/Δk⌋.
+    /// Period of the one-body transfer lattice, P₁ = max(L_c, (L + L_c)/2), nm: no coherence
+    /// inside the domain (half-length ≤ L/2) reaches an image of the window (docs/method.md
+    /// §2.3). The pair table has its own period (`table2.period`).
+    pub period: f64,
+    /// One-body transfer quantum Δk = π/P₁, 1/nm, and cap K = ⌊k_max/Δk⌋.
     pub dk: f64,
     pub cap: usize,
     /// Kernel table of the summed one-body potential on the space mesh.
@@ -206,28 +210,42 @@ impl Setup {
         .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
         let lc = job.numerics.coherence_length;
         let rolloff = job.numerics.rolloff.unwrap_or(lc / 8.0);
-        let dk = std::f64::consts::PI / lc;
-        let cap = (job.domain.k_max / dk).floor() as usize;
+        // Transfer lattices (docs/method.md §2.3): window width L_c, period P ≥ L_c with
+        // Δk = π/P, and P long enough that no coherence inside the mesh meets an image of the
+        // window: a coherence of half-length s meets the first image at s = P − L_c/2.
+        // One-body: |s| ≤ L/2, so P₁ = (L + L_c)/2. Pair, relative coordinate r ∈ [−L, L]:
+        // |s| ≤ L, so P₂ = L + L_c/2 (periodic, minimal images in [−L/2, L/2]: P₂ = P₁).
+        let cap_of =
+            |period: f64| (job.domain.k_max * period / std::f64::consts::PI).floor() as usize;
+        let period = lc.max(0.5 * (width + lc));
+        let dk = std::f64::consts::PI / period;
+        let cap = cap_of(period);
         let table1 = one_body.has_kernel().then(|| {
             let ob = one_body.clone();
             let u = move |x: f64| ob.kernel_part(x);
-            KernelTable::build(&u, lo, mesh_dx, job.domain.cells, lc, rolloff, cap)
+            KernelTable::build(&u, lo, mesh_dx, job.domain.cells, lc, rolloff, period, cap)
         });
         let table2 = (n >= 2).then_some(()).and(pair).map(|p| {
             // Periodic: minimal-image separations lie in [−L/2, L/2]; otherwise [−L, L].
-            let (r_lo, points) = if job.domain.boundary == Boundary::Periodic {
-                (-0.5 * width, job.domain.cells)
+            let (r_lo, points, period2) = if job.domain.boundary == Boundary::Periodic {
+                (-0.5 * width, job.domain.cells, period)
             } else {
-                (-width, 2 * job.domain.cells)
+                (-width, 2 * job.domain.cells, lc.max(width + 0.5 * lc))
             };
             let u = move |r: f64| p.value(r);
-            KernelTable::build(&u, r_lo, mesh_dx, points, lc, rolloff, cap)
+            let cap2 = cap_of(period2);
+            KernelTable::build(&u, r_lo, mesh_dx, points, lc, rolloff, period2, cap2)
         });
         let pairs = (n * n.saturating_sub(1) / 2) as f64;
         let gamma_max = n as f64 * table1.as_ref().map_or(0.0, |t| t.gamma_max)
             + pairs * table2.as_ref().map_or(0.0, |t| t.gamma_max);
         let cell_x = job.annihilation.cell_x.unwrap_or(mesh_dx);
-        let cell_k = job.annihilation.cell_k.unwrap_or(dk / 2.0);
+        // Default k cell: half the transfer quantum of the window, π/(2L_c) in 1/nm, as before
+        // the lattice period was decoupled from L_c (not from the finer Δk = π/P).
+        let cell_k = job
+            .annihilation
+            .cell_k
+            .unwrap_or(std::f64::consts::PI / (2.0 * lc));
         let memory_limit = job
             .numerics
             .memory_limit_mib
@@ -247,6 +265,7 @@ impl Setup {
             pair,
             lc,
             rolloff,
+            period,
             dk,
             cap,
             table1,
