@@ -96,8 +96,13 @@ fn quick_series_writes_csv_picture_and_machine_description() {
             assert!(e > 0.0 && e <= 1.5, "{series}: efficiency {e} in (0, 1.5]");
             assert!(num(r, "wall_s") > 0.0);
             assert!(num(r, "imbalance_advance") >= 1.0);
-            // The quick barrier run annihilates at least once, so the reduction sent data.
-            assert!(num(r, "bytes_sent_per_rank") > 0.0, "{series}: bytes sent");
+            // The quick barrier run annihilates at least once, so on several ranks the
+            // reduction sent data; one rank decides from its own counts and sends nothing.
+            if num(r, "ranks") > 1.0 {
+                assert!(num(r, "bytes_sent_per_rank") > 0.0, "{series}: bytes sent");
+            } else {
+                assert_eq!(num(r, "bytes_sent_per_rank"), 0.0, "{series}: one rank");
+            }
             assert!(num(r, "occupied_cells_per_rank") > 0.0, "{series}: cells");
         }
         // Weak scaling keeps the particles per rank; strong the total (sampling drops a

@@ -305,7 +305,7 @@ fn drive(
             timers.add_secs(Phase::Binning, rep.binning_s);
             timers.add_secs(Phase::Reduction, rep.reduction_s);
             // The rest of the call (the global before/after counts, which also absorb the
-            // ranks' imbalance in selection, and freeing the cell buffers) is bookkeeping.
+            // ranks' imbalance in selection) is bookkeeping.
             timers.add_secs(
                 Phase::Bookkeeping,
                 (t0.elapsed().as_secs_f64() - rep.binning_s - rep.reduction_s - rep.selection_s)
