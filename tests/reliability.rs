@@ -59,6 +59,10 @@ fn signfold(args: &[&str]) -> std::process::Output {
     child.wait_with_output().expect("signfold output")
 }
 
+fn stdout(o: &std::process::Output) -> String {
+    String::from_utf8_lossy(&o.stdout).into_owned()
+}
+
 fn stderr(o: &std::process::Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()
 }
@@ -413,4 +417,82 @@ fn errors_name_the_written_line_and_the_set_spelling() {
     ok(&signfold(&["check", j, "--set", "potential.0.width=3.0"]));
     let o = signfold(&["check", j, "--set", "potential.0.widht=3.0"]);
     refused_with(&o, &["--set", "widht"]);
+}
+
+/// `signfold ARGS` with a file-size limit of `bytes` (a directory that cannot take a file of
+/// that size; as root a read-only mode would not stop writes, a size limit does).
+fn signfold_fsize(args: &[&str], bytes: u64) -> std::process::Output {
+    use std::os::unix::process::CommandExt as _;
+    let child = {
+        let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+        let mut cmd = std::process::Command::new(bin());
+        cmd.args(args)
+            .stdout(std::process::Stdio::piped())
+            .stderr(std::process::Stdio::piped());
+        // SAFETY: only async-signal-safe calls between fork and exec.
+        unsafe {
+            cmd.pre_exec(move || {
+                let lim = libc::rlimit {
+                    rlim_cur: bytes,
+                    rlim_max: bytes,
+                };
+                libc::setrlimit(libc::RLIMIT_FSIZE, &lim);
+                libc::signal(libc::SIGXFSZ, libc::SIG_IGN);
+                Ok(())
+            });
+        }
+        cmd.spawn().expect("the signfold binary runs")
+    };
+    child.wait_with_output().expect("signfold output")
+}
+
+/// An output directory that cannot take files is found before any computing (run,
+/// resume, reference); a write that fails after all leaves no temporary file; `plot` of a
+/// directory is a plain message.
+#[test]
+fn unwritable_output_is_found_before_computing() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", JOB);
+    let j = job.to_str().unwrap();
+    let out = dir.path().join("ref");
+    let o = out.to_str().unwrap();
+    let r = signfold_fsize(&["reference", j, "--out", o], 1024);
+    refused_with(&r, &["not writable", o]);
+    let text = stdout(&r);
+    assert!(
+        !text.lines().any(|l| l.starts_with("t = ")),
+        "solved first:\n{text}"
+    );
+    // MPI cannot start under a file-size limit, so `run` and `resume` meet a directory that
+    // refuses files even to root (sysfs).
+    let sys = "/sys/kernel";
+    if std::fs::File::create(Path::new(sys).join("signfold-probe")).is_err() {
+        let r = signfold(&["run", j, "--out", sys]);
+        refused_with(&r, &["not writable", sys]);
+        assert!(!stdout(&r).contains("particles at t = 0"), "{}", stdout(&r));
+        // resume finds it before looking for checkpoints.
+        refused_with(&signfold(&["resume", sys]), &["not writable", sys]);
+    }
+    let mc = dir.path().join("mc2");
+    ok(&signfold(&[
+        "run",
+        j,
+        "--out",
+        mc.to_str().unwrap(),
+        "--until",
+        "2",
+    ]));
+    // Room for the probe but not for the result file: the write fails after the solve
+    // and leaves neither the file nor its temporary.
+    let r = signfold_fsize(&["reference", j, "--out", o, "--force"], 32 * 1024);
+    refused_with(&r, &["reference.h5"]);
+    let left: Vec<_> = std::fs::read_dir(&out)
+        .unwrap()
+        .map(|e| e.unwrap().file_name())
+        .collect();
+    assert!(left.is_empty(), "left behind: {left:?}");
+    // plot of a directory.
+    let r = signfold(&["plot", mc.to_str().unwrap(), "--out", o]);
+    refused_with(&r, &["is a directory"]);
+    assert!(!stderr(&r).contains("HDF5"), "{}", stderr(&r));
 }

@@ -36,6 +36,7 @@ pub fn command(
     say(p.to_string());
     std::fs::create_dir_all(out)
         .map_err(|e| anyhow::anyhow!("cannot create {}: {e}", out.display()))?;
+    signfold::io::results::probe_writable(out)?;
     let started = std::time::Instant::now();
     let file = solve_with(&loaded, &opts, &mut |pr| match pr {
         Progress::Warning(w) => eprintln!("signfold: warning: {w}"),

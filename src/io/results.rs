@@ -149,11 +149,19 @@ impl ResultFile {
             Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
             Err(e) => return Err(anyhow!("cannot remove the stale {}: {e}", tmp.display())),
         }
-        self.write_to(&tmp)
-            .with_context(|| format!("cannot write {}", tmp.display()))?;
-        std::fs::rename(&tmp, path)
-            .with_context(|| format!("cannot rename {} to {}", tmp.display(), path.display()))?;
-        Ok(())
+        let written = self
+            .write_to(&tmp)
+            .with_context(|| format!("cannot write {}", tmp.display()))
+            .and_then(|()| {
+                std::fs::rename(&tmp, path).with_context(|| {
+                    format!("cannot rename {} to {}", tmp.display(), path.display())
+                })
+            });
+        if written.is_err() {
+            // A failed write leaves nothing behind; the previous file stays as it was.
+            let _ = std::fs::remove_file(&tmp);
+        }
+        written
     }
 
     fn write_to(&self, path: &Path) -> Result<()> {
@@ -196,6 +204,12 @@ impl ResultFile {
         let shown = path.display();
         if !path.exists() {
             bail!("{shown}: no such file");
+        }
+        if path.is_dir() {
+            bail!(
+                "{shown}: is a directory, not a result file (e.g. {})",
+                path.join(names::OBSERVABLES_FILE).display()
+            );
         }
         let f = hdf5::File::open(path)
             .map_err(|e| anyhow!("{shown}: not a readable HDF5 file ({e})"))?;
@@ -300,4 +314,18 @@ pub fn write_str_attr(loc: &hdf5::Location, name: &str, value: &str) -> Result<(
 pub fn read_str_attr(loc: &hdf5::Location, name: &str) -> Result<String> {
     let v: hdf5::types::VarLenUnicode = loc.attr(name)?.read_scalar()?;
     Ok(v.as_str().to_string())
+}
+
+/// Check that `dir` takes a file: create a probe of a few KiB, sync it and remove it. Run
+/// before any long computation, so that a read-only directory, a full disk or a file-size
+/// limit is found at once rather than after the work.
+pub fn probe_writable(dir: &Path) -> Result<()> {
+    use std::io::Write as _;
+    let probe = dir.join(names::PROBE_FILE);
+    let r = std::fs::File::create(&probe).and_then(|mut f| {
+        f.write_all(&[0u8; 4096])?;
+        f.sync_all()
+    });
+    let _ = std::fs::remove_file(&probe);
+    r.map_err(|e| anyhow!("{}: the directory is not writable ({e})", dir.display()))
 }

@@ -107,12 +107,14 @@ pub fn resume(
     let started = Instant::now();
     let mut _lock = None;
     let locked = if comm.is_root() && dir.is_dir() {
-        lock_dir(dir).map(|(lock, note)| {
-            _lock = Some(lock);
-            if let Some(n) = note {
-                progress(Progress::Warning(n));
-            }
-        })
+        crate::io::results::probe_writable(dir)
+            .and_then(|()| lock_dir(dir))
+            .map(|(lock, note)| {
+                _lock = Some(lock);
+                if let Some(n) = note {
+                    progress(Progress::Warning(n));
+                }
+            })
     } else {
         Ok(())
     };

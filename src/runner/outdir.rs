@@ -21,7 +21,7 @@ pub fn prepare_out(dir: &Path, force: bool) -> Result<()> {
     }
     std::fs::create_dir_all(dir)
         .map_err(|e| anyhow::anyhow!("--out {}: cannot create directory: {e}", dir.display()))?;
-    Ok(())
+    crate::io::results::probe_writable(dir)
 }
 
 /// The lock of an output directory, held by rank 0 of the run or resume working in it;
