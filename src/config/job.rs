@@ -160,7 +160,7 @@ pub struct Annihilation {
     /// count and the count right after the latest annihilation.
     #[serde(default = "default_trigger")]
     pub trigger: f64,
-    /// Live samples the run may hold on all ranks together (default 4 × numerics.particles).
+    /// Live samples the run may hold on all ranks together (default 10 × numerics.particles).
     /// When an annihilation at the job's cells leaves more than half of it, coarser cells
     /// are used for that pass (and reported).
     pub budget: Option<u64>,

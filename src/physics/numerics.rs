@@ -66,7 +66,7 @@ pub struct Setup {
 }
 
 /// Default sample budget, in units of the initial sample count.
-pub const DEFAULT_BUDGET_FACTOR: u64 = 4;
+pub const DEFAULT_BUDGET_FACTOR: u64 = 10;
 
 /// Physical memory of this machine in bytes (from /proc/meminfo; 8 GiB if unknown).
 pub fn machine_memory() -> f64 {
