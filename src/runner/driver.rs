@@ -15,7 +15,7 @@ use crate::io::results::ResultFile;
 use crate::physics::estimators::Counts;
 use crate::physics::flight;
 use crate::physics::numerics::Setup;
-use crate::runner::outdir::{lock_dir, prepare_out};
+use crate::runner::outdir::{DirLock, lock_dir, prepare_out};
 use crate::runner::progress::{Progress, Sink, StopReason};
 use crate::runner::records::{phase_table, record_run};
 use anyhow::{Result, bail};
@@ -50,20 +50,13 @@ pub fn run(
 ) -> Result<Ending> {
     let started = Instant::now();
     let root = comm.is_root();
-    let mut _lock = None;
-    let prepared = if root {
-        prepare_out(&opts.out, opts.force)
-            .and_then(|()| lock_dir(&opts.out))
-            .map(|(lock, note)| {
-                _lock = Some(lock);
-                if let Some(n) = note {
-                    progress(Progress::Warning(n));
-                }
-            })
-    } else {
-        Ok(())
-    };
-    agree(comm, prepared)?;
+    let _lock = claim_dir(
+        &opts.out,
+        root,
+        || prepare_out(&opts.out, opts.force),
+        comm,
+        progress,
+    )?;
     if root {
         // Older checkpoints of a forced rerun must not be resumed by mistake.
         for step in checkpoint::list(&opts.out) {
@@ -96,6 +89,30 @@ pub fn run(
     )
 }
 
+/// Where `act` (rank 0): `check` the directory, then take its lock, reporting a replaced
+/// stale lock. Every rank agrees on the outcome; the lock is held while the value lives.
+fn claim_dir(
+    dir: &Path,
+    act: bool,
+    check: impl FnOnce() -> Result<()>,
+    comm: &dyn Comm,
+    progress: Sink,
+) -> Result<Option<DirLock>> {
+    let mut lock = None;
+    let claimed = if act {
+        check().and_then(|()| lock_dir(dir)).map(|(l, note)| {
+            lock = Some(l);
+            if let Some(n) = note {
+                progress(Progress::Warning(n));
+            }
+        })
+    } else {
+        Ok(())
+    };
+    agree(comm, claimed)?;
+    Ok(lock)
+}
+
 /// Continue the run in `dir` from its newest valid checkpoint, on any number of ranks.
 pub fn resume(
     dir: &Path,
@@ -105,20 +122,13 @@ pub fn resume(
     progress: Sink,
 ) -> Result<Ending> {
     let started = Instant::now();
-    let mut _lock = None;
-    let locked = if comm.is_root() && dir.is_dir() {
-        crate::io::results::probe_writable(dir)
-            .and_then(|()| lock_dir(dir))
-            .map(|(lock, note)| {
-                _lock = Some(lock);
-                if let Some(n) = note {
-                    progress(Progress::Warning(n));
-                }
-            })
-    } else {
-        Ok(())
-    };
-    agree(comm, locked)?;
+    let _lock = claim_dir(
+        dir,
+        comm.is_root() && dir.is_dir(),
+        || crate::io::results::probe_writable(dir),
+        comm,
+        progress,
+    )?;
     let mut timers = Timers::default();
     let t0 = Instant::now();
     let restored = checkpoint::newest_valid(dir, comm)?;
