@@ -7,7 +7,10 @@
 //! - `annihilate`: what a run does — an [`Annihilator`] kept from call to call (the
 //!   driver's), through MPI's `World` (one rank, MPI initialised as a singleton) when MPI
 //!   starts, else through `Solo`;
-//! - `annihilate-fresh`: the same with fresh buffers every call (`annihilate`, `Solo`).
+//! - `annihilate-fresh`: the same with fresh buffers every call (`annihilate`, `Solo`);
+//! - `annihilate-adaptive`: the run's default pass, adaptive resolution (the merge tree over
+//!   the nested cells) and then annihilation at the leaves, buffers kept; with the job's
+//!   budget no merging is needed, so its survivors equal the finest cells' (checked).
 //!
 //! The store is that of jobs/fermion-pair-coulomb.toml (relative cells, exchange-merged)
 //! after a few intervals of advance without annihilation, so that the signed initial state
@@ -21,7 +24,8 @@ mod support;
 
 use criterion::BenchmarkId;
 use rand::{Rng, SeedableRng};
-use signfold::engine::annihilate::{Annihilator, CellMesh, annihilate};
+use signfold::engine::annihilate::{Annihilator, CellMesh, Cells, annihilate};
+use signfold::engine::budget::Annihilation;
 use signfold::engine::comm::{Comm, Solo};
 use signfold::engine::mpi::World;
 use signfold::engine::start;
@@ -129,18 +133,31 @@ fn main() {
     // The run's path: one Annihilator for all calls; warm it up and check it agrees.
     let mut kept = Annihilator::default();
     let mut s = store.clone();
-    kept.run(&setup, &mesh, &mut s, step, comm);
+    kept.run(&setup, Cells::Level(&mesh, 0), &mut s, step, comm);
     assert_eq!(support::fingerprint(&s), print, "kept buffers, {comm_name}");
     let mut s = store.clone();
     let a = allocations();
-    kept.run(&setup, &mesh, &mut s, step, comm);
+    kept.run(&setup, Cells::Level(&mesh, 0), &mut s, step, comm);
     let warm_allocs = allocations() - a;
     let mut s = store.clone();
     let a = allocations();
     annihilate(&setup, &mesh, &mut s, step, &Solo);
     let fresh_allocs = allocations() - a;
+    let mut adaptive = Annihilation::new(&setup).expect("cell hierarchy");
+    let mut s = store.clone();
+    adaptive.run(&setup, &mut s, step, comm);
+    assert_eq!(
+        support::fingerprint(&s),
+        print,
+        "adaptive, no merging needed"
+    );
+    let mut s = store.clone();
+    let a = allocations();
+    adaptive.run(&setup, &mut s, step, comm);
+    let adaptive_allocs = allocations() - a;
     println!(
-        "heap allocations in one call: kept buffers ({comm_name}) {warm_allocs}, fresh buffers {fresh_allocs}"
+        "heap allocations in one call: kept buffers ({comm_name}) {warm_allocs}, fresh buffers {fresh_allocs}, \
+         adaptive {adaptive_allocs}"
     );
 
     // The cases; each returns the time of its measured part (the copy of the input is not).
@@ -155,7 +172,7 @@ fn main() {
     let mut run = || {
         let mut s = store.clone();
         let t = Instant::now();
-        let r = kept.run(&setup, &mesh, &mut s, step, comm);
+        let r = kept.run(&setup, Cells::Level(&mesh, 0), &mut s, step, comm);
         let d = t.elapsed();
         black_box((r, &s));
         d
@@ -168,8 +185,22 @@ fn main() {
         black_box((r, &s));
         d
     };
-    let names = ["sort-u64", "annihilate", "annihilate-fresh"];
-    let mut cases: [&mut dyn FnMut() -> Duration; 3] = [&mut sort, &mut run, &mut fresh];
+    let mut adapt = || {
+        let mut s = store.clone();
+        let t = Instant::now();
+        let r = adaptive.run(&setup, &mut s, step, comm);
+        let d = t.elapsed();
+        black_box((r.report, &s));
+        d
+    };
+    let names = [
+        "sort-u64",
+        "annihilate",
+        "annihilate-fresh",
+        "annihilate-adaptive",
+    ];
+    let mut cases: [&mut dyn FnMut() -> Duration; 4] =
+        [&mut sort, &mut run, &mut fresh, &mut adapt];
 
     let mut c = support::criterion();
     {
@@ -189,7 +220,7 @@ fn main() {
 
     // The summary: interleaved rounds, so that the ratios compare like with like.
     let m = support::interleaved(ROUNDS, &mut cases);
-    let (sort, run, fresh) = (m[0], m[1], m[2]);
+    let (sort, run, fresh, adapt) = (m[0], m[1], m[2], m[3]);
     let rows = [
         format!("sort-u64,{n},{n},,1,{sort:.6},1.000,"),
         format!(
@@ -204,15 +235,24 @@ fn main() {
             rep.local_cells,
             fresh / sort
         ),
+        format!(
+            "annihilate-adaptive,{n},{},{},1,{adapt:.6},{:.3},{adaptive_allocs}",
+            rep.after,
+            rep.local_cells,
+            adapt / sort
+        ),
     ];
     println!(
         "interleaved medians of {ROUNDS} rounds, one thread: sort_unstable {:.1} ms, annihilate \
-         ({comm_name}, kept buffers) {:.1} ms: ratio {:.2}; fresh buffers {:.1} ms: ratio {:.2}",
+         ({comm_name}, kept buffers) {:.1} ms: ratio {:.2}; fresh buffers {:.1} ms: ratio {:.2}; \
+         adaptive {:.1} ms: ratio {:.2}",
         sort * 1e3,
         run * 1e3,
         run / sort,
         fresh * 1e3,
-        fresh / sort
+        fresh / sort,
+        adapt * 1e3,
+        adapt / sort
     );
     support::write_csv(
         "bench-annihilation.csv",

@@ -7,7 +7,7 @@
 //! (A contract of the engine, no outside source.)
 
 use signfold::config::job;
-use signfold::engine::annihilate::{Annihilator, CellMesh, annihilate};
+use signfold::engine::annihilate::{Annihilator, CellMesh, Cells, annihilate};
 use signfold::engine::comm::Solo;
 use signfold::engine::start;
 use signfold::physics::flight::advance_in_place;
@@ -113,13 +113,21 @@ fn check(file: &str, overrides: &[&str], intervals: u64) {
     let mut bigger = store.clone();
     let mut extra = store.clone();
     bigger.append(&mut extra);
-    two.install(|| ann.run(&setup, &mesh, &mut bigger, intervals + 1, &Solo));
+    two.install(|| {
+        ann.run(
+            &setup,
+            Cells::Level(&mesh, 0),
+            &mut bigger,
+            intervals + 1,
+            &Solo,
+        )
+    });
     let mut s = store.clone();
-    two.install(|| ann.run(&setup, &mesh, &mut s, intervals, &Solo));
+    two.install(|| ann.run(&setup, Cells::Level(&mesh, 0), &mut s, intervals, &Solo));
     assert!(s == expected, "{file}: two threads, kept buffers");
     // Annihilating again changes nothing: no cell is mixed any more.
     let again = s.clone();
-    one.install(|| ann.run(&setup, &mesh, &mut s, intervals, &Solo));
+    one.install(|| ann.run(&setup, Cells::Level(&mesh, 0), &mut s, intervals, &Solo));
     assert!(s == again, "{file}: a second pass must be a no-op");
 }
 
@@ -143,4 +151,68 @@ fn barrier_packet_keeps_what_the_rule_names() {
 #[test]
 fn three_fermions_keep_what_the_rule_names() {
     check("three-fermions-trap.toml", &["numerics.particles=5000"], 4);
+}
+
+/// Adaptive resolution, on hand-placed samples of a one-particle job: two sibling finest
+/// cells A and B (neighbours in x, one k cell) inside one cell of level 1.
+/// - Signs spread alike (A: 26+ 24−, B: 24+ 26−; χ² = 0.16, z ≈ −0.5): finest cells
+///   would leave 4; the first rung that may merge into level 1 leaves 0 and is used when the
+///   target is 2, without being reported as forced.
+/// - A sign pattern (A: 40+ 10−, B: 10+ 40−; χ² = 36, z ≈ 5.4 by Wilson–Hilferty): it is
+///   kept (60 left) while the target allows, and merged (0 left) only on a rung above
+///   z = 5, which is reported as forced.
+///
+/// In every case the annihilation at the chosen leaves leaves exactly the count the merge
+/// tree predicted. (A contract of docs/method.md §3.1, counts worked by hand.)
+#[test]
+fn adaptive_resolution_merges_alike_signs_and_keeps_patterns() {
+    use signfold::engine::resolution::{LADDER, Resolution, Z_STRUCTURE};
+    let setup = setup("barrier-packet.toml", &[]);
+    let mesh = CellMesh::new(&setup).unwrap();
+    let (cx, _) = mesh.cell_sizes(0);
+    let nx = ((setup.hi - setup.lo) / cx) as u64;
+    let j = nx / 4; // an even finest x cell well inside the domain: A = 2j, B = 2j + 1
+    let xa = setup.lo + (2 * j) as f64 * cx + 0.5 * cx;
+    let xb = xa + cx;
+    let fill = |a: (u32, u32), b: (u32, u32)| {
+        let mut s = Store::new(1);
+        let mut id = 0u64;
+        for (x, (plus, minus)) in [(xa, a), (xb, b)] {
+            for i in 0..plus + minus {
+                id += 1;
+                s.push(&[x], &[0.01], id, if i < plus { 1 } else { -1 });
+            }
+        }
+        s
+    };
+    let run = |store: &Store, target: u64| {
+        let mut res = Resolution::default();
+        let out = res.resolve(&mesh, store, target, &Solo);
+        let mut s = store.clone();
+        let rep = Annihilator::default().run(&setup, Cells::Keys(res.keys()), &mut s, 1, &Solo);
+        assert_eq!(
+            rep.after, out.after,
+            "the tree predicts the annihilation exactly"
+        );
+        (out.rung, out.after)
+    };
+    let alike = fill((26, 24), (24, 26));
+    assert_eq!(
+        run(&alike, 1000),
+        (0, 4),
+        "nothing merged while the target allows"
+    );
+    let (rung, after) = run(&alike, 2);
+    assert_eq!(after, 0);
+    assert!(
+        LADDER[rung].0 >= 1 && LADDER[rung].1 <= Z_STRUCTURE,
+        "rung {rung}"
+    );
+    let pattern = fill((40, 10), (10, 40));
+    for target in [1000, 60] {
+        assert_eq!(run(&pattern, target), (0, 60), "a resolved pattern is kept");
+    }
+    let (rung, after) = run(&pattern, 10);
+    assert_eq!(after, 0);
+    assert!(LADDER[rung].1 > 5.0, "rung {rung}");
 }

@@ -83,3 +83,40 @@ fn interacting_pair_is_identical_on_any_partition() {
         assert_identical(&base, &other, &format!("{ranks} ranks"));
     }
 }
+
+/// A budget so tight that annihilation must merge cells (adaptive resolution: the merge
+/// tree decides from counts gathered at the owners of the coarsest cells; fixed: whole
+/// coarser levels) stays bit-identical on any partition, and the merging is recorded.
+#[test]
+fn merged_cells_are_identical_on_any_partition() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = demo("barrier-packet.toml");
+    for resolution in ["adaptive", "fixed"] {
+        let sub = dir.path().join(resolution);
+        let r = format!("annihilation.resolution=\"{resolution}\"");
+        let extra = [
+            "--particles",
+            "20000",
+            "--set",
+            "numerics.end_time=60",
+            "--set",
+            "annihilation.budget=40000",
+            "--set",
+            &r,
+        ];
+        let base = run_with(&sub, 1, 1, &job, &extra);
+        let coarsest = &base.records["annihilation_coarsest_level"].1;
+        assert!(
+            coarsest.iter().any(|&l| l > 0.0),
+            "{resolution}: the budget must force merged cells, got levels {coarsest:?}"
+        );
+        for (ranks, threads) in [(1, 2), (2, 1), (3, 1)] {
+            let other = run_with(&sub, ranks, threads, &job, &extra);
+            assert_identical(
+                &base,
+                &other,
+                &format!("{resolution}: {ranks} rank(s) × {threads} thread(s)"),
+            );
+        }
+    }
+}

@@ -149,13 +149,29 @@ pub enum CellKind {
     Relative,
 }
 
+/// How annihilation chooses its cells (docs/method.md §3).
+#[derive(Deserialize, Serialize, Clone, Copy, Debug, PartialEq, Eq, Default)]
+#[serde(rename_all = "kebab-case")]
+pub enum Resolution {
+    /// Cells from `cell_x` × `cell_k` up to 64× coarser, chosen per region of phase space
+    /// by whether the two signs are spread alike over the finer cells.
+    #[default]
+    Adaptive,
+    /// The cells `cell_x` × `cell_k` everywhere (coarsened as a whole only to keep within
+    /// the budget).
+    Fixed,
+}
+
 #[derive(Deserialize, Serialize, Clone, Debug)]
 #[serde(deny_unknown_fields)]
 pub struct Annihilation {
-    /// Cell size in x, nm (default: the mesh cell).
+    /// Finest cell size in x, nm (default: the mesh cell).
     pub cell_x: Option<f64>,
-    /// Cell size in k, 1/nm (default Δk/2).
+    /// Finest cell size in k, 1/nm (default π/(2 L_c)).
     pub cell_k: Option<f64>,
+    /// Adaptive cells (default) or the fixed cells `cell_x` × `cell_k`.
+    #[serde(default)]
+    pub resolution: Resolution,
     /// Annihilate when the global particle count exceeds trigger × the larger of the initial
     /// count and the count right after the latest annihilation.
     #[serde(default = "default_trigger")]
@@ -176,6 +192,7 @@ impl Default for Annihilation {
         Annihilation {
             cell_x: None,
             cell_k: None,
+            resolution: Resolution::Adaptive,
             trigger: default_trigger(),
             budget: None,
             cells: CellKind::Full,

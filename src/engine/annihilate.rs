@@ -18,6 +18,7 @@
 //! store); on one rank that is a selection, not a sort. The buffers live in an
 //! [`Annihilator`] that the run keeps from one call to the next.
 
+use crate::engine::cell_table::CellTable;
 use crate::engine::comm::Comm;
 pub use crate::physics::cells::CellMesh;
 use crate::physics::numerics::Setup;
@@ -59,127 +60,6 @@ pub struct Report {
 const SELECT_LOCAL: u64 = 1;
 const NEED_THRESHOLD: u64 = 2;
 
-const EMPTY: u64 = u64::MAX;
-
-/// One slot of [`CellTable`]: a key and its dense cell index (`EMPTY` when free).
-#[derive(Clone, Copy)]
-struct Slot {
-    lo: u64,
-    hi: u64,
-    cell: u64,
-}
-
-const FREE: Slot = Slot {
-    lo: 0,
-    hi: 0,
-    cell: EMPTY,
-};
-
-/// Open-addressing hash table (linear probing, load ≤ 1/2) from 128-bit cell keys to dense
-/// cell indices 0, 1, 2, … in order of first insertion. Keeps its capacity when cleared.
-#[derive(Default)]
-struct CellTable {
-    slots: Vec<Slot>,
-    /// 64 − log2(slots.len()): the hash's top bits index the slots.
-    shift: u32,
-    /// Keys by dense cell index.
-    keys: Vec<u128>,
-}
-
-/// Slot hash of a key: both halves multiplied into 64 well-mixed bits (the top bits are used).
-#[inline]
-fn slot_hash(lo: u64, hi: u64) -> u64 {
-    let h = (lo ^ hi.rotate_left(29).wrapping_mul(0x9e37_79b9_7f4a_7c15))
-        .wrapping_mul(0xd6e8_feb8_6659_fd93);
-    h ^ (h >> 32)
-}
-
-impl CellTable {
-    /// Forget all keys; keep the storage (at least `min_slots` slots, a power of two).
-    fn clear(&mut self, min_slots: usize) {
-        let want = min_slots.max(1024).next_power_of_two();
-        if self.slots.len() < want {
-            self.slots = vec![FREE; want];
-        } else {
-            self.slots.fill(FREE);
-        }
-        self.shift = 64 - self.slots.len().trailing_zeros();
-        self.keys.clear();
-    }
-
-    /// Number of distinct keys inserted.
-    fn len(&self) -> usize {
-        self.keys.len()
-    }
-
-    /// Dense index of `key`, inserting it when new.
-    #[inline]
-    fn insert(&mut self, key: u128) -> usize {
-        let (lo, hi) = (key as u64, (key >> 64) as u64);
-        let mask = self.slots.len() - 1;
-        let mut i = (slot_hash(lo, hi) >> self.shift) as usize;
-        loop {
-            let s = self.slots[i];
-            if s.cell == EMPTY {
-                let c = self.keys.len();
-                self.slots[i] = Slot {
-                    lo,
-                    hi,
-                    cell: c as u64,
-                };
-                self.keys.push(key);
-                if 2 * self.keys.len() > self.slots.len() {
-                    self.grow();
-                }
-                return c;
-            }
-            if s.lo == lo && s.hi == hi {
-                return s.cell as usize;
-            }
-            i = (i + 1) & mask;
-        }
-    }
-
-    /// Dense index of `key` if present.
-    #[inline]
-    fn get(&self, key: u128) -> Option<usize> {
-        let (lo, hi) = (key as u64, (key >> 64) as u64);
-        let mask = self.slots.len() - 1;
-        let mut i = (slot_hash(lo, hi) >> self.shift) as usize;
-        loop {
-            let s = self.slots[i];
-            if s.cell == EMPTY {
-                return None;
-            }
-            if s.lo == lo && s.hi == hi {
-                return Some(s.cell as usize);
-            }
-            i = (i + 1) & mask;
-        }
-    }
-
-    /// Double the slots and re-insert every key.
-    fn grow(&mut self) {
-        let n = self.slots.len() * 2;
-        self.slots.clear();
-        self.slots.resize(n, FREE);
-        self.shift = 64 - n.trailing_zeros();
-        let mask = n - 1;
-        for (c, &key) in self.keys.iter().enumerate() {
-            let (lo, hi) = (key as u64, (key >> 64) as u64);
-            let mut i = (slot_hash(lo, hi) >> self.shift) as usize;
-            while self.slots[i].cell != EMPTY {
-                i = (i + 1) & mask;
-            }
-            self.slots[i] = Slot {
-                lo,
-                hi,
-                cell: c as u64,
-            };
-        }
-    }
-}
-
 /// What happens to the particles of one local cell.
 #[derive(Clone, Copy, Default)]
 struct Decision {
@@ -191,6 +71,25 @@ struct Decision {
     threshold: bool,
     /// Majority particles kept in the whole cell.
     quota: u64,
+}
+
+/// Where each particle's cell key comes from.
+#[derive(Clone, Copy)]
+pub enum Cells<'a> {
+    /// The particle's cell at one level of the nested mesh.
+    Level(&'a CellMesh, u32),
+    /// One key per particle in store order (the leaves of the adaptive resolution).
+    Keys(&'a [u128]),
+}
+
+impl Cells<'_> {
+    #[inline]
+    fn key(&self, store: &Store, p: usize) -> u128 {
+        match *self {
+            Cells::Level(mesh, level) => mesh.key_at(store.xs(p), store.ks(p), store.id[p], level),
+            Cells::Keys(keys) => keys[p],
+        }
+    }
 }
 
 /// The buffers of annihilation, kept from one call to the next so that a run allocates
@@ -230,7 +129,7 @@ impl Annihilator {
     pub fn run(
         &mut self,
         setup: &Setup,
-        mesh: &CellMesh,
+        cells: Cells,
         store: &mut Store,
         interval: u64,
         comm: &dyn Comm,
@@ -240,7 +139,7 @@ impl Annihilator {
         comm.sum_i64(&mut before);
         let t_start = std::time::Instant::now();
         // 1. Occupied cells of this rank with their (+, −) counts.
-        self.bin(mesh, store);
+        self.bin(cells, store);
         let cells = self.table.len();
         let t_binned = std::time::Instant::now();
         // 2. Global decision per cell: on one rank straight from the local counts, else from
@@ -301,7 +200,7 @@ impl Annihilator {
 
     /// Fill `table` with the occupied cells of `store`, `cell_of` with each particle's cell
     /// and `plus`/`minus` with the signs counted per cell.
-    fn bin(&mut self, mesh: &CellMesh, store: &Store) {
+    fn bin(&mut self, cells: Cells, store: &Store) {
         let n = store.len();
         let hint = 2 * self.table.len();
         self.table.clear(hint);
@@ -310,7 +209,7 @@ impl Annihilator {
         self.cell_of.clear();
         self.cell_of.reserve(n);
         let threads = rayon::current_num_threads();
-        if threads > 1 {
+        if threads > 1 && matches!(cells, Cells::Level(..)) {
             // Keys in parallel, then the (cache-resident) counting pass.
             const CHUNK: usize = 1 << 14;
             self.keys.clear();
@@ -321,15 +220,14 @@ impl Annihilator {
                 .for_each(|(j, chunk)| {
                     for (i, key) in chunk.iter_mut().enumerate() {
                         let p = j * CHUNK + i;
-                        *key = mesh.key(store.xs(p), store.ks(p), store.id[p]);
+                        *key = cells.key(store, p);
                     }
                 });
         }
         for p in 0..n {
-            let key = if threads > 1 {
-                self.keys[p]
-            } else {
-                mesh.key(store.xs(p), store.ks(p), store.id[p])
+            let key = match cells {
+                Cells::Level(..) if threads > 1 => self.keys[p],
+                _ => cells.key(store, p),
             };
             let c = self.table.insert(key);
             if c == self.plus.len() {
@@ -610,7 +508,7 @@ pub fn annihilate(
     interval: u64,
     comm: &dyn Comm,
 ) -> Report {
-    Annihilator::default().run(setup, mesh, store, interval, comm)
+    Annihilator::default().run(setup, Cells::Level(mesh, 0), store, interval, comm)
 }
 
 /// Even out particle counts over ranks (global order: rank, then position in the store).

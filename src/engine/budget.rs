@@ -1,59 +1,108 @@
-//! The sample budget (docs/method.md §3): annihilation at the job's cells first; when that
-//! leaves more than half the budget, again at cells twice as coarse in x and k, and so on,
-//! up to [`MAX_LEVEL`]. Every pass is the same partition-independent reduction, so the
-//! survivors stay bit-identical on any number of ranks and threads.
+//! One annihilation within the sample budget (docs/method.md §3): the cells it uses and
+//! what it reports.
+//!
+//! Adaptive resolution (the default): the merge tree of [`crate::engine::resolution`]
+//! chooses each region's cells, with the least merging that leaves at most half the budget.
+//! Fixed resolution: the job's cells first; when that leaves more than half the budget, the
+//! pass is repeated with cells 2×, 4×, … coarser everywhere, up to [`MAX_LEVEL`]. Both are
+//! partition-independent reductions, so the survivors are bit-identical on any number of
+//! ranks and threads.
 
-use crate::engine::annihilate::{Annihilator, Report};
+use crate::config::job::Resolution;
+use crate::engine::annihilate::{Annihilator, Cells, Report};
 use crate::engine::comm::Comm;
-use crate::physics::cells::CellMesh;
+use crate::engine::resolution::{self, LADDER, Z_STRUCTURE};
+use crate::physics::cells::{CellMesh, MAX_LEVEL};
 use crate::physics::numerics::Setup;
 use crate::physics::particles::Store;
 use anyhow::Result;
 
-/// Coarsest level: cells 2^MAX_LEVEL times the job's in x and in k.
-pub const MAX_LEVEL: u32 = 6;
-
-/// The cell meshes of every level, built once per run.
-pub struct Levels {
-    meshes: Vec<CellMesh>,
+/// What one annihilation did, beyond the counts.
+#[derive(Clone, Debug, Default)]
+pub struct Pass {
+    pub report: Report,
+    /// Mean level of the samples in cells that held both signs (fixed: the level used).
+    pub mean_level: f64,
+    /// Coarsest level of such cells.
+    pub coarsest_level: u32,
+    /// Adaptive: the χ² normal-score threshold used (2: the sign patterns the samples
+    /// resolve are kept; larger: cells whose signs were spread unalike were merged).
+    /// Fixed: NaN.
+    pub threshold: f64,
+    /// True when the budget forced cells beyond the least merging (a coarser fixed level,
+    /// or an adaptive threshold above the first rung).
+    pub forced: bool,
 }
 
-impl Levels {
+/// The cell hierarchy and the buffers of annihilation, kept for the whole run.
+pub struct Annihilation {
+    mesh: CellMesh,
+    resolution: resolution::Resolution,
+    annihilator: Annihilator,
+}
+
+impl Annihilation {
     pub fn new(setup: &Setup) -> Result<Self> {
-        let meshes = (0..=MAX_LEVEL)
-            .map(|l| CellMesh::at_level(setup, l))
-            .collect::<Result<Vec<_>>>()?;
-        Ok(Levels { meshes })
+        Ok(Annihilation {
+            mesh: CellMesh::new(setup)?,
+            resolution: resolution::Resolution::default(),
+            annihilator: Annihilator::default(),
+        })
     }
 
     /// Cell sizes of `level`, nm and 1/nm.
     pub fn cell_sizes(&self, level: u32) -> (f64, f64) {
-        self.meshes[level as usize].cell_sizes()
+        self.mesh.cell_sizes(level)
     }
-}
 
-/// One annihilation within the budget: the combined report (before = the count before the
-/// first pass, after = after the last; times and words summed) and the coarsest level used.
-pub fn annihilate_within_budget(
-    setup: &Setup,
-    levels: &Levels,
-    annihilator: &mut Annihilator,
-    store: &mut Store,
-    interval: u64,
-    comm: &dyn Comm,
-) -> (Report, u32) {
-    let target = setup.budget / 2;
-    let mut total = annihilator.run(setup, &levels.meshes[0], store, interval, comm);
-    let mut level = 0;
-    while total.after > target && level < MAX_LEVEL {
-        level += 1;
-        let r = annihilator.run(setup, &levels.meshes[level as usize], store, interval, comm);
-        total.after = r.after;
-        total.local_cells = r.local_cells;
-        total.words_sent += r.words_sent;
-        total.binning_s += r.binning_s;
-        total.reduction_s += r.reduction_s;
-        total.selection_s += r.selection_s;
+    /// Annihilate `store` in place (`interval` keys the survivor priorities).
+    pub fn run(
+        &mut self,
+        setup: &Setup,
+        store: &mut Store,
+        interval: u64,
+        comm: &dyn Comm,
+    ) -> Pass {
+        let target = setup.budget / 2;
+        match setup.resolution {
+            Resolution::Adaptive => {
+                let out = self.resolution.resolve(&self.mesh, store, target, comm);
+                let cells = Cells::Keys(self.resolution.keys());
+                let mut report = self.annihilator.run(setup, cells, store, interval, comm);
+                debug_assert_eq!(report.after, out.after, "the tree's count is exact");
+                report.binning_s += out.seconds;
+                report.words_sent += out.words_sent;
+                Pass {
+                    report,
+                    mean_level: out.mean_level(),
+                    coarsest_level: out.coarsest_level(),
+                    threshold: LADDER[out.rung].1,
+                    forced: LADDER[out.rung].1 > Z_STRUCTURE,
+                }
+            }
+            Resolution::Fixed => {
+                let a = &mut self.annihilator;
+                let mesh = &self.mesh;
+                let mut total = a.run(setup, Cells::Level(mesh, 0), store, interval, comm);
+                let mut level = 0;
+                while total.after > target && level < MAX_LEVEL {
+                    level += 1;
+                    let r = a.run(setup, Cells::Level(mesh, level), store, interval, comm);
+                    total.after = r.after;
+                    total.local_cells = r.local_cells;
+                    total.words_sent += r.words_sent;
+                    total.binning_s += r.binning_s;
+                    total.reduction_s += r.reduction_s;
+                    total.selection_s += r.selection_s;
+                }
+                Pass {
+                    report: total,
+                    mean_level: f64::from(level),
+                    coarsest_level: level,
+                    threshold: f64::NAN,
+                    forced: level > 0,
+                }
+            }
+        }
     }
-    (total, level)
 }

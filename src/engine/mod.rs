@@ -5,10 +5,12 @@
 
 pub mod annihilate;
 pub mod budget;
+pub mod cell_table;
 pub mod comm;
 #[cfg(feature = "app")]
 pub mod mpi;
 pub mod observe;
+pub mod resolution;
 pub mod start;
 pub mod state;
 pub mod stop;

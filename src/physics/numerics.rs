@@ -1,7 +1,7 @@
 //! Validated numerics: everything the run derives from the job before the first particle
 //! exists (meshes, Δk, the transfer cap, kernel tables, Γ_max, cells, memory estimates).
 
-use crate::config::job::{Boundary, CellKind, Job, LoadedJob, Statistics};
+use crate::config::job::{Boundary, CellKind, Job, LoadedJob, Resolution, Statistics};
 use crate::physics::grid::{self, Bins};
 use crate::physics::initial::NBodyWigner;
 use crate::physics::kernel::KernelTable;
@@ -54,6 +54,7 @@ pub struct Setup {
     pub cell_x: f64,
     pub cell_k: f64,
     pub cells: CellKind,
+    pub resolution: Resolution,
     pub merge_exchange: bool,
     pub groups: u32,
     pub seed: u64,
@@ -279,6 +280,7 @@ impl Setup {
             cell_x,
             cell_k,
             cells: job.annihilation.cells,
+            resolution: job.annihilation.resolution,
             merge_exchange: job.annihilation.merge_exchange && job.particles.statistics.identical(),
             groups: job.numerics.groups,
             seed: job.numerics.seed,

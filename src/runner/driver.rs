@@ -2,7 +2,7 @@
 
 use crate::config::job::LoadedJob;
 use crate::engine::annihilate;
-use crate::engine::budget::{Levels, annihilate_within_budget};
+use crate::engine::budget::{Annihilation, Pass};
 use crate::engine::comm::{Comm, agree};
 use crate::engine::observe;
 use crate::engine::start::initial_state;
@@ -188,10 +188,11 @@ fn drive(
     progress: Sink,
 ) -> Result<Ending> {
     let root = comm.is_root();
-    let levels = Levels::new(setup)?;
-    let mut coarsest_level = 0u32;
-    // Annihilation buffers, kept from one pass to the next.
-    let mut annihilator = annihilate::Annihilator::default();
+    // The cell hierarchy and annihilation buffers, kept from one pass to the next.
+    let mut annihilation = Annihilation::new(setup)?;
+    // Most merging the budget has forced so far (warned when it grows).
+    let mut forced_threshold = 0.0f64;
+    let mut forced_level = 0u32;
     let obs_path = opts.out.join(names::OBSERVABLES_FILE);
     let observe = |st: &State, out: &mut ResultFile, timers: &mut Timers| {
         let t0 = Instant::now();
@@ -287,30 +288,22 @@ fn drive(
         let threshold = ((setup.trigger * reference as f64) as u64).min(setup.budget);
         if count > threshold {
             let t0 = Instant::now();
-            let (rep, level) = annihilate_within_budget(
-                setup,
-                &levels,
-                &mut annihilator,
-                &mut st.store,
-                st.step,
-                comm,
-            );
-            if level > coarsest_level {
-                coarsest_level = level;
+            let pass = annihilation.run(setup, &mut st.store, st.step, comm);
+            let rep = pass.report;
+            let worse = if pass.threshold.is_nan() {
+                pass.coarsest_level > forced_level
+            } else {
+                pass.threshold > forced_threshold
+            };
+            if pass.forced && worse {
+                forced_level = forced_level.max(pass.coarsest_level);
+                forced_threshold = forced_threshold.max(pass.threshold);
                 if root {
-                    let (cx, ck) = levels.cell_sizes(level);
-                    progress(Progress::Warning(format!(
-                        "t = {} fs: to keep within the budget of {} samples (annihilation.budget), annihilation \
-                         used cells of {cx:.3} nm × {ck:.4} 1/nm, {}× coarser than the job's {:.3} nm × {:.4} 1/nm; \
-                         coarser cells blur the Wigner function (Δk = {:.4} 1/nm{}) and may bias the result: \
-                         raise the budget or check convergence",
+                    progress(Progress::Warning(forced_warning(
+                        setup,
+                        &annihilation,
+                        &pass,
                         st.step as f64 * setup.dt,
-                        setup.budget,
-                        1u32 << level,
-                        setup.cell_x,
-                        setup.cell_k,
-                        setup.dk,
-                        exchange_note(setup),
                     )));
                 }
             }
@@ -336,9 +329,14 @@ fn drive(
             cells.push(rep.local_cells as f64);
             if root {
                 let rec = &mut out.records;
-                let (cx, ck) = levels.cell_sizes(level);
+                let (cx, ck) = annihilation.cell_sizes(pass.coarsest_level);
                 for (d, v) in [
-                    (names::ANNIHILATION_LEVEL, level as f64),
+                    (names::ANNIHILATION_LEVEL, pass.mean_level),
+                    (
+                        names::ANNIHILATION_COARSEST_LEVEL,
+                        f64::from(pass.coarsest_level),
+                    ),
+                    (names::ANNIHILATION_THRESHOLD, pass.threshold),
                     (names::ANNIHILATION_CELL_X, cx),
                     (names::ANNIHILATION_CELL_K, ck),
                     (names::ANNIHILATION_TIME, st.step as f64 * setup.dt),
@@ -484,6 +482,38 @@ fn drive(
         });
     }
     Ok(Ending::Finished)
+}
+
+/// The warning of an annihilation whose cells the budget forced beyond the least merging.
+fn forced_warning(setup: &Setup, annihilation: &Annihilation, pass: &Pass, t: f64) -> String {
+    let (cx, ck) = annihilation.cell_sizes(pass.coarsest_level);
+    let how = if pass.threshold.is_nan() {
+        format!(
+            "used cells {}× coarser than the job's {:.3} nm × {:.4} 1/nm",
+            1u32 << pass.coarsest_level,
+            setup.cell_x,
+            setup.cell_k
+        )
+    } else {
+        format!(
+            "merged cells whose two signs were spread unalike (χ² score up to {}, where 2 keeps the \
+             structure the samples resolve)",
+            if pass.threshold.is_finite() {
+                format!("{:.0}", pass.threshold)
+            } else {
+                "any".to_string()
+            }
+        )
+    };
+    format!(
+        "t = {t} fs: to keep within the budget of {} samples (annihilation.budget), annihilation {how}; \
+         the coarsest cells used were {cx:.3} nm × {ck:.4} 1/nm (mean level {:.2}); coarse cells blur the \
+         Wigner function (Δk = {:.4} 1/nm{}) and may bias the result: raise the budget or check convergence",
+        setup.budget,
+        pass.mean_level,
+        setup.dk,
+        exchange_note(setup),
+    )
 }
 
 /// ", exchange period 2π/d = … 1/nm" for identical particles (d the largest orbital
