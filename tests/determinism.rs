@@ -105,10 +105,11 @@ fn merged_cells_are_identical_on_any_partition() {
             &r,
         ];
         let base = run_with(&sub, 1, 1, &job, &extra);
-        let coarsest = &base.records["annihilation_coarsest_level"].1;
+        let lx = &base.records["annihilation_level_x"].1;
+        let lk = &base.records["annihilation_level_k"].1;
         assert!(
-            coarsest.iter().any(|&l| l > 0.0),
-            "{resolution}: the budget must force merged cells, got levels {coarsest:?}"
+            lx.iter().chain(lk).any(|&l| l > 0.0),
+            "{resolution}: the budget must force merged cells, got levels {lx:?} × {lk:?}"
         );
         for (ranks, threads) in [(1, 2), (2, 1), (3, 1)] {
             let other = run_with(&sub, ranks, threads, &job, &extra);
