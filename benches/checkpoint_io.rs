@@ -97,7 +97,16 @@ fn main() {
         };
         world.any(false);
         let t = Instant::now();
-        if let Err(e) = checkpoint::write(&dir, &st, &results, &loaded, 1.0, ROUNDS + 1, &world) {
+        if let Err(e) = checkpoint::write(
+            &dir,
+            &st,
+            &results,
+            &loaded,
+            1.0,
+            "benchmark",
+            ROUNDS + 1,
+            &world,
+        ) {
             panic!("checkpoint: {e:#}");
         }
         world.any(false);

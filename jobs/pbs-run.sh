@@ -17,6 +17,14 @@
 # minus MARGIN_MIN, so signfold stops at a synchronisation time with a checkpoint before
 # PBS ends the job.
 #
+# Stopping early and cleanly: send SIGUSR1 to mpirun (`qsig -s USR1 <job id>`): Open MPI's
+# mpirun forwards it, every rank checkpoints at the next synchronisation time and all exit
+# 0. PBS itself (qdel, the walltime limit) sends SIGTERM, which Open MPI's mpirun cannot
+# forward: it aborts, SIGKILLs the ranks odls_base_sigkill_timeout seconds later and exits
+# 1. The ranks take the SIGTERM as a stop request too, so the timeout is raised below to
+# give them time to finish their checkpoint; the job then ends with status 1 and is not
+# resubmitted (submit again to continue).
+#
 # Completion: when signfold's log of this job has the line "signfold: finished at … wrote DIR/observables.h5 …"
 # (printed only when the last step is done) the script writes DIR/signfold-finished and stops.
 # When it printed "signfold: stopped at … checkpoint written" and a newer checkpoint exists
@@ -49,6 +57,8 @@ if [[ -n "$MODULES" ]]; then
     module load $MODULES
 fi
 export OMP_NUM_THREADS=1
+# Seconds Open MPI's mpirun waits between SIGTERM and SIGKILL to the ranks (default 1).
+export OMPI_MCA_odls_base_sigkill_timeout="${OMPI_MCA_odls_base_sigkill_timeout:-120}"
 NP="$(wc -l <"$PBS_NODEFILE")"
 
 if [[ -e "$DIR/signfold-finished" ]]; then

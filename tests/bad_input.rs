@@ -5,39 +5,8 @@ mod common;
 
 use common::*;
 
-const GOOD: &str = r#"
-[particles]
-count = 2
-statistics = "fermion"
-mass = 0.067
-
-[[orbital]]
-kind = "gaussian"
-centre = -20.0
-wavevector = 0.4
-width = 5.0
-
-[[orbital]]
-kind = "gaussian"
-centre = 20.0
-wavevector = -0.4
-width = 5.0
-
-[domain]
-x_min = -80.0
-x_max = 80.0
-cells = 160
-boundary = "absorbing"
-k_max = 1.5
-
-[numerics]
-coherence_length = 100.0
-sync_step = 2.0
-end_time = 4.0
-particles = 2000
-groups = 4
-seed = 1
-"#;
+/// The small free pair of `common`.
+const GOOD: &str = FREE_PAIR;
 
 /// Run `check` and `run` on `text`; both must fail with a message containing every
 /// fragment in `expect`, exit code 2, and no panic.

@@ -6,40 +6,8 @@ mod common;
 use common::*;
 use std::path::Path;
 
-/// A small free fermion pair: 2 fs sync steps to 8 fs, a second on one core.
-const JOB: &str = r#"
-[particles]
-count = 2
-statistics = "fermion"
-mass = 0.067
-
-[[orbital]]
-kind = "gaussian"
-centre = -20.0
-wavevector = 0.4
-width = 5.0
-
-[[orbital]]
-kind = "gaussian"
-centre = 20.0
-wavevector = -0.4
-width = 5.0
-
-[domain]
-x_min = -80.0
-x_max = 80.0
-cells = 160
-boundary = "absorbing"
-k_max = 1.5
-
-[numerics]
-coherence_length = 100.0
-sync_step = 2.0
-end_time = 8.0
-particles = 2000
-groups = 4
-seed = 1
-"#;
+/// The small free fermion pair of `common`.
+const JOB: &str = FREE_PAIR;
 
 /// Held while this test binary writes an HDF5 file and while it starts a child, so that
 /// no child inherits (and keeps locked) a file being written.
@@ -228,13 +196,9 @@ fn inconsistent_jobs_and_options_are_refused() {
 /// replaced with a note; the lock is removed when the run ends.
 #[test]
 fn output_directory_is_locked() {
-    let dir = tempfile::tempdir().unwrap();
-    let job = write_job(dir.path(), "job.toml", JOB);
-    let j = job.to_str().unwrap();
-    let out = dir.path().join("out");
-    let o = out.to_str().unwrap();
+    let (_dir, job, out) = stopped_at_4fs(JOB);
+    let (j, o) = (job.to_str().unwrap(), out.to_str().unwrap());
     let lock = out.join("signfold.lock");
-    ok(&signfold(&["run", j, "--out", o, "--until", "4"]));
     assert!(!lock.exists(), "the lock is removed at exit");
     let host = signfold::runner::outdir::host_name();
     // A live holder: this test process.
@@ -290,6 +254,17 @@ fn output_directory_is_locked() {
     assert!(first.wait().unwrap().success());
     refused_with(&second, &["in use", &first.id().to_string()]);
     assert!(!slow_lock.exists(), "the lock is removed after a stop");
+}
+
+/// `text` written as DIR/job.toml and run into DIR/out until 4 fs (a checkpoint at step 2):
+/// the directory (removed when dropped), the job and the run directory.
+fn stopped_at_4fs(text: &str) -> (tempfile::TempDir, std::path::PathBuf, std::path::PathBuf) {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", text);
+    let out = dir.path().join("out");
+    let (j, o) = (job.to_str().unwrap(), out.to_str().unwrap());
+    ok(&signfold(&["run", j, "--out", o, "--until", "4"]));
+    (dir, job, out)
 }
 
 /// A synthetic pair of result files on 50 x bins at `times`: B exact (no errors, a current
@@ -495,4 +470,314 @@ fn unwritable_output_is_found_before_computing() {
     let r = signfold(&["plot", mc.to_str().unwrap(), "--out", o]);
     refused_with(&r, &["is a directory"]);
     assert!(!stderr(&r).contains("HDF5"), "{}", stderr(&r));
+}
+
+/// A long run of the free pair (periodic, so nothing leaves; steps of a few ms) started
+/// with `launch` in front of the binary, and the time its t = 0 output exists.
+fn start_long(launch: &[&str], job: &Path, out: &Path) -> std::process::Child {
+    let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+    let (prog, pre) = match launch {
+        [] => (bin(), &[][..]),
+        [p, rest @ ..] => (*p, rest),
+    };
+    let mut cmd = std::process::Command::new(prog);
+    cmd.args(pre);
+    if !launch.is_empty() {
+        cmd.arg(bin());
+    }
+    let child = cmd
+        .args(["run", job.to_str().unwrap(), "--out", out.to_str().unwrap()])
+        .args(["--particles", "200000", "--threads", "1"])
+        .args([
+            "--set",
+            "numerics.end_time=100000",
+            "--set",
+            "domain.boundary=periodic",
+        ])
+        .env("OMPI_ALLOW_RUN_AS_ROOT", "1")
+        .env("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1")
+        .env("OMPI_MCA_rmaps_base_oversubscribe", "1")
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .expect("the run starts");
+    drop(_guard);
+    let t0 = std::time::Instant::now();
+    while !out.join("observables.h5").exists() && t0.elapsed().as_secs() < 60 {
+        std::thread::sleep(std::time::Duration::from_millis(20));
+    }
+    std::thread::sleep(std::time::Duration::from_millis(300));
+    child
+}
+
+/// The time of the `stopped at t = … fs` line, which must be the last line.
+fn stopped_at(text: &str) -> f64 {
+    let last = last_line(text);
+    let rest = last
+        .strip_prefix("signfold: stopped at t = ")
+        .unwrap_or_else(|| panic!("the last line says where it stopped:\n{text}"));
+    rest.split(' ').next().unwrap().parse().unwrap()
+}
+
+/// SIGTERM and SIGINT to a run without mpirun stop it at the next synchronisation time with
+/// a checkpoint and exit 0, like SIGUSR1; the checkpoint continues.
+#[test]
+fn sigterm_and_sigint_stop_a_single_run_cleanly() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", JOB);
+    for (name, sig) in [("term", libc::SIGTERM), ("int", libc::SIGINT)] {
+        let out = dir.path().join(name);
+        let child = start_long(&[], &job, &out);
+        // SAFETY: signalling our own child.
+        unsafe {
+            libc::kill(child.id() as i32, sig);
+        }
+        let o = child.wait_with_output().unwrap();
+        let text = stdout(&o);
+        assert_eq!(o.status.code(), Some(0), "{name}: exit 0\n{}", stderr(&o));
+        let t = stopped_at(&text);
+        assert!(last_line(&text).contains("(stop signal)"), "{text}");
+        let cps = checkpoints(&out);
+        assert_eq!(cps.len(), 1, "{name}: one checkpoint");
+        assert_eq!(cps[0], format!("checkpoint-{:010}.h5", (t / 2.0) as u64));
+        let until = format!("{}", t + 4.0);
+        let o = out.to_str().unwrap();
+        let text = ok(&signfold(&["resume", o, "--until", &until]));
+        assert_eq!(stopped_at(&text), t + 4.0, "{text}");
+    }
+}
+
+/// Under Open MPI's mpirun (4.1 here) SIGTERM cannot be passed on as a stop request:
+/// `ess_base_forward_signals` refuses it (Open MPI's own message, seen here), and mpirun
+/// treats it as an abort: it sends SIGTERM to the ranks, SIGKILL after
+/// `odls_base_sigkill_timeout` seconds (1 by default; mpirun itself exits after about twice
+/// that, measured here), and exits 1 whatever the ranks do. What the README documents:
+/// given the time (a raised timeout), the ranks still stop at the next synchronisation time
+/// with a complete checkpoint that resumes; mpirun exits 1.
+/// SIGUSR1 is the clean stop under mpirun (exit 0: tests/checkpoint.rs).
+#[test]
+fn sigterm_to_mpirun_is_an_abort_but_the_ranks_checkpoint() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", JOB);
+    let out = dir.path().join("mpi");
+    let child = start_long(
+        &[
+            "mpirun",
+            "-np",
+            "2",
+            "--oversubscribe",
+            "--mca",
+            "odls_base_sigkill_timeout",
+            "5",
+        ],
+        &job,
+        &out,
+    );
+    // SAFETY: signalling our own child.
+    unsafe {
+        libc::kill(child.id() as i32, libc::SIGTERM);
+    }
+    let o = child.wait_with_output().unwrap();
+    let text = stdout(&o);
+    assert_eq!(
+        o.status.code(),
+        Some(1),
+        "Open MPI's mpirun exits 1 after SIGTERM (the README says so)\n{text}\n{}",
+        stderr(&o)
+    );
+    let t = stopped_at(&text);
+    assert_eq!(checkpoints(&out).len(), 1, "{text}");
+    let until = format!("{}", t + 4.0);
+    let text = ok(&signfold(&[
+        "resume",
+        out.to_str().unwrap(),
+        "--until",
+        &until,
+    ]));
+    assert_eq!(stopped_at(&text), t + 4.0, "{text}");
+}
+
+/// What a run that dies between the two files of a checkpoint leaves (the results copy of
+/// the next step, a temporary particle file) is removed by the next `resume` (with a note)
+/// and by `run --force`; resume goes on from the last complete checkpoint.
+#[test]
+fn checkpoint_leftovers_are_removed() {
+    let (_dir, job, out) = stopped_at_4fs(JOB);
+    let (j, o) = (job.to_str().unwrap(), out.to_str().unwrap());
+    let leave_debris = || {
+        let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+        std::fs::copy(
+            out.join("checkpoint-0000000002-results.h5"),
+            out.join("checkpoint-0000000003-results.h5"),
+        )
+        .unwrap();
+        std::fs::write(out.join("checkpoint-0000000003.h5.tmp"), b"partial").unwrap();
+    };
+    let names = |d: &Path| -> Vec<String> {
+        let mut v: Vec<String> = std::fs::read_dir(d)
+            .unwrap()
+            .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+            .filter(|n| n.starts_with("checkpoint-"))
+            .collect();
+        v.sort();
+        v
+    };
+    leave_debris();
+    let r = signfold(&["resume", o, "--until", "6"]);
+    ok(&r);
+    assert!(
+        stderr(&r).contains("checkpoint-0000000003-results.h5")
+            && stderr(&r).contains("checkpoint-0000000003.h5.tmp"),
+        "the removal is reported: {}",
+        stderr(&r)
+    );
+    assert_eq!(
+        names(&out),
+        [
+            "checkpoint-0000000002-results.h5",
+            "checkpoint-0000000002.h5",
+            "checkpoint-0000000003-results.h5",
+            "checkpoint-0000000003.h5"
+        ],
+        "the debris is gone; step 3 (6 fs) is now a complete checkpoint"
+    );
+    std::fs::remove_file(out.join("checkpoint-0000000003.h5")).unwrap();
+    std::fs::write(out.join("checkpoint-0000000002.h5.tmp"), b"partial").unwrap();
+    ok(&signfold(&[
+        "run", j, "--out", o, "--force", "--until", "2",
+    ]));
+    assert_eq!(
+        names(&out),
+        [
+            "checkpoint-0000000001-results.h5",
+            "checkpoint-0000000001.h5"
+        ],
+        "a forced run keeps nothing of the old checkpoints"
+    );
+}
+
+/// Replace the `numerics_hash` attribute of a checkpoint (None: remove it); returns the
+/// value it had (empty when it had none).
+fn set_numerics_hash(path: &Path, value: Option<&str>) -> String {
+    let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+    let f = hdf5::File::open_rw(path).unwrap();
+    let old = signfold::io::results::read_str_attr(&f, "numerics_hash").unwrap_or_default();
+    if !old.is_empty() {
+        f.delete_attr("numerics_hash").unwrap();
+    }
+    if let Some(v) = value {
+        signfold::io::results::write_str_attr(&f, "numerics_hash", v).unwrap();
+    }
+    old
+}
+
+/// Every checkpoint stores hashes of the kernel tables and derived numerics; `resume`
+/// rebuilds them and refuses, naming what differs, when they disagree (as after a change
+/// of the code or the machine), touching nothing; a checkpoint without the hash resumes
+/// with a note that it cannot be verified.
+#[test]
+fn resume_refuses_tables_that_differ_from_the_checkpoint() {
+    let with_potential = format!(
+        "{JOB}\n[[potential]]\nkind = \"gaussian\"\ncentre = 0.0\nwidth = 4.0\nheight = 0.05\n"
+    );
+    let (_dir, _, out) = stopped_at_4fs(&with_potential);
+    let o = out.to_str().unwrap();
+    let cp = out.join("checkpoint-0000000002.h5");
+    let stored = set_numerics_hash(&cp, Some("probe"));
+    let keys: Vec<&str> = stored
+        .split(' ')
+        .map(|kv| kv.split('=').next().unwrap())
+        .collect();
+    assert_eq!(
+        keys,
+        ["one_body_table", "pair_table", "derived"],
+        "{stored}"
+    );
+    let before = std::fs::read(out.join("observables.h5")).unwrap();
+    for (part, what) in [
+        ("one_body_table", "the one-body kernel table"),
+        ("derived", "the derived numerics"),
+    ] {
+        let tampered: Vec<String> = stored
+            .split(' ')
+            .map(|kv| {
+                if kv.starts_with(part) {
+                    format!("{part}=0123456789abcdef")
+                } else {
+                    kv.to_string()
+                }
+            })
+            .collect();
+        set_numerics_hash(&cp, Some(&tampered.join(" ")));
+        let r = signfold(&["resume", o]);
+        refused_with(
+            &r,
+            &[what, "stored 0123456789abcdef", "checkpoint-0000000002.h5"],
+        );
+        let other = if part == "derived" {
+            "one-body kernel table"
+        } else {
+            "derived numerics"
+        };
+        assert!(
+            !stderr(&r).contains(other),
+            "only what differs: {}",
+            stderr(&r)
+        );
+        assert_eq!(std::fs::read(out.join("observables.h5")).unwrap(), before);
+    }
+    set_numerics_hash(&cp, None);
+    let r = signfold(&["resume", o, "--until", "6"]);
+    ok(&r);
+    assert!(stderr(&r).contains("cannot be verified"), "{}", stderr(&r));
+    set_numerics_hash(&cp, Some(&stored));
+    ok(&signfold(&["resume", o]));
+}
+
+/// The MPI exchange splits messages into rounds of at most SIGNFOLD_EXCHANGE_CHUNK_WORDS
+/// words per rank pair (for 64-bit counts beyond MPI's 32-bit ones); with a limit of 61
+/// words every annihilation pass takes many rounds, and 2 and 3 ranks still give the
+/// one-rank datasets bit for bit.
+#[test]
+fn chunked_exchanges_give_identical_results() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = demo("barrier-packet.toml");
+    let run = |ranks: usize| {
+        let out = dir.path().join(format!("np{ranks}"));
+        let mut cmd = std::process::Command::new("mpirun");
+        cmd.args(["-np", &ranks.to_string(), "--oversubscribe", bin()])
+            .args(["run", job.to_str().unwrap(), "--out", out.to_str().unwrap()])
+            .args(["--particles", "20000", "--threads", "1"])
+            .args(["--set", "numerics.end_time=30"])
+            .args(["--set", "annihilation.trigger=1.5"])
+            .env(signfold::engine::mpi::CHUNK_ENV, "61")
+            .env("OMPI_ALLOW_RUN_AS_ROOT", "1")
+            .env("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1");
+        let child = {
+            let _guard = FILES.lock().unwrap_or_else(|e| e.into_inner());
+            cmd.stdout(std::process::Stdio::piped())
+                .stderr(std::process::Stdio::piped())
+                .spawn()
+                .unwrap()
+        };
+        ok(&child.wait_with_output().unwrap());
+        signfold::io::results::ResultFile::read(&out.join("observables.h5")).unwrap()
+    };
+    let base = run(1);
+    assert!(
+        base.records["annihilation_time"].1.len() >= 3,
+        "the test must exercise annihilation"
+    );
+    for ranks in [2, 3] {
+        let other = run(ranks);
+        // Each rank sends the (key, +, −) words of its occupied cells to their owners: at
+        // least 3·cells/P words to some rank, which must exceed the 61-word round.
+        let cells = &other.run["occupied_cells"].1;
+        let most = cells.iter().cloned().fold(0.0, f64::max);
+        assert!(
+            3.0 * most / ranks as f64 > 10.0 * 61.0,
+            "at least ten rounds in the largest pass ({most} cells)"
+        );
+        assert_same_datasets(&base, &other, &format!("{ranks} ranks, 61-word rounds"));
+    }
 }

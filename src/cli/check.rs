@@ -5,8 +5,10 @@ use super::collective;
 use anyhow::{Result, bail};
 use signfold::engine::comm::Comm;
 use signfold::engine::mpi::World;
+use signfold::engine::start::sign_ratio;
 use signfold::physics::initial;
 use signfold::physics::numerics::{Setup, machine_memory};
+use signfold::viz::chart::short;
 use std::fmt::Write;
 use std::path::Path;
 use std::process::ExitCode;
@@ -15,7 +17,10 @@ use std::process::ExitCode;
 pub fn command(job: &Path, set: &[String], world: &World) -> Result<ExitCode> {
     let loaded = collective(signfold::physics::defaults::load(job, set))?;
     let setup = collective(Setup::new(&loaded))?;
-    let text = collective(report(&setup, world.size()))?;
+    // ∫|W|/∫W from the run's own initial draws, summed over the ranks as `run` does.
+    let draws = setup.target.min(RATIO_DRAWS);
+    let ratio = collective(sign_ratio(&setup, draws, world))?;
+    let text = collective(report(&setup, world.size(), ratio, draws))?;
     if world.is_root() {
         print!("{text}");
         // The numerics derived from the physics, with why (also stored in every result).
@@ -29,23 +34,42 @@ pub fn command(job: &Path, set: &[String], world: &World) -> Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// Draws used for the forecast.
+/// Draws used for the growth-rate forecast (the first of the run's own draws).
 const FORECAST_DRAWS: u64 = 20_000;
 
-/// Estimated ∫|W|/∫W and the mean generation rate ⟨Γ⟩ (1/fs) of the initial particles.
-fn forecast(setup: &Setup) -> Result<(f64, f64)> {
+/// At most this many of the run's initial draws give `check`'s ∫|W|/∫W (all of them, and so
+/// exactly the value `run` prints, for numerics.particles up to this).
+const RATIO_DRAWS: u64 = 2_000_000;
+
+/// The job-file word of a job value (`"fermion"`, `"absorbing"`, `"full"`).
+fn word<T: serde::Serialize>(v: &T) -> String {
+    match toml::Value::try_from(v) {
+        Ok(toml::Value::String(s)) => s,
+        _ => "?".into(),
+    }
+}
+
+/// Why the initial particle count differs from `numerics.particles` (printed by `check` and
+/// `run`): D draws, each emitting ⌊|w_d|/w₀ + U⌋ particles, U uniform on [0, 1).
+pub fn count_note(draws: u64) -> String {
+    format!(
+        "the initial count is random around numerics.particles = {draws}: each of the {draws} draws gives \
+         ⌊|w|/w₀ + U⌋ particles (w its signed weight, w₀ = Σ|w|/{draws}, U uniform), so the count equals {draws} on \
+         average and scatters by at most √{draws}/2 = {:.0} (one standard deviation); draws outside the domain or \
+         momentum range are not kept",
+        (draws as f64).sqrt() / 2.0
+    )
+}
+
+/// The mean generation rate ⟨Γ⟩ (1/fs) of the initial particles, weighted by |w|.
+fn forecast(setup: &Setup) -> Result<f64> {
     let w = setup.initial_state()?;
     let n = setup.n;
-    let (mut abs, mut net, mut rate) = (0.0, 0.0, 0.0);
+    let (mut abs, mut rate) = (0.0, 0.0);
     let (mut x, mut k) = (vec![0.0; n], vec![0.0; n]);
     for d in 0..FORECAST_DRAWS {
-        let r = w.draw(
-            &mut initial::draw_stream(setup.seed ^ 0x5eed, d),
-            &mut x,
-            &mut k,
-        );
+        let r = w.draw(&mut initial::draw_stream(setup.seed, d), &mut x, &mut k);
         abs += r.abs();
-        net += r;
         let mut g = 0.0;
         if let Some(t) = &setup.table1 {
             g += x.iter().map(|&xi| t.gamma_at(xi)).sum::<f64>();
@@ -59,23 +83,34 @@ fn forecast(setup: &Setup) -> Result<(f64, f64)> {
         }
         rate += r.abs() * g;
     }
-    Ok((abs / net, rate / abs))
+    Ok(rate / abs)
 }
 
 /// The report printed by `check`; fails when the job cannot run on this machine.
-fn report(setup: &Setup, ranks: usize) -> Result<String> {
+fn report(setup: &Setup, ranks: usize, ratio: f64, draws: u64) -> Result<String> {
     let mut s = String::new();
-    let (ratio, mean_rate) = forecast(setup)?;
+    let mean_rate = forecast(setup)?;
     let w = &mut s;
     writeln!(
         w,
-        "job: {} particle(s), {:?} statistics, mass {} m_e",
-        setup.n, setup.stats, setup.job.particles.mass
+        "job: {} particle(s), statistics \"{}\", mass {} m_e",
+        setup.n,
+        word(&setup.stats),
+        setup.job.particles.mass
     )?;
     writeln!(
         w,
-        "domain: [{}, {}] nm, {} mesh cells of {:.4} nm, boundary {:?}",
-        setup.lo, setup.hi, setup.job.domain.cells, setup.mesh_dx, setup.boundary
+        "domain: [{}, {}] nm, boundary \"{}\"; space mesh of {} cells of {} nm (domain.cells: kernel tables{})",
+        setup.lo,
+        setup.hi,
+        word(&setup.boundary),
+        setup.job.domain.cells,
+        short(setup.mesh_dx),
+        if setup.job.annihilation.cell_x.is_none() {
+            ", and the annihilation cell in x"
+        } else {
+            ""
+        }
     )?;
     writeln!(
         w,
@@ -128,10 +163,10 @@ fn report(setup: &Setup, ranks: usize) -> Result<String> {
     let mesh = signfold::engine::annihilate::CellMesh::new(setup)?;
     writeln!(
         w,
-        "annihilation cells: {:.4} nm × {:.5} 1/nm ({:?}{}), mesh volume {:.3e} cells (stored sparsely), trigger at {}× the initial count or the count after the latest annihilation, if larger",
-        setup.cell_x,
-        setup.cell_k,
-        setup.cells,
+        "annihilation cells: {} nm × {} 1/nm (cells \"{}\"{}), mesh volume {:.3e} cells (stored sparsely), trigger at {}× the initial count or the count after the latest annihilation, if larger",
+        short(setup.cell_x),
+        short(setup.cell_k),
+        word(&setup.cells),
         if setup.merge_exchange {
             ", exchange-merged"
         } else {
@@ -142,10 +177,22 @@ fn report(setup: &Setup, ranks: usize) -> Result<String> {
     )?;
     writeln!(
         w,
-        "sign problem: ∫|W|/∫W = {ratio:.4} at t = 0; expected particle growth rate 2⟨Γ⟩ = {:.4e} 1/fs (×{:.3e} per sync step without annihilation)",
+        "sign problem: ∫|W|/∫W = {ratio:.4} at t = 0 ({}); expected particle growth rate 2⟨Γ⟩ = {:.4e} 1/fs \
+         (×{:.3e} per sync step without annihilation; from the first {} draws)",
+        if draws == setup.target {
+            format!("Σ|w|/Σw over the run's {draws} initial draws: the value `run` prints")
+        } else {
+            format!(
+                "Σ|w|/Σw over the first {draws} of the run's {} initial draws; `run` prints it over all of them, \
+                 which differs by sampling noise",
+                setup.target
+            )
+        },
         2.0 * mean_rate,
-        (2.0 * mean_rate * setup.dt).exp()
+        (2.0 * mean_rate * setup.dt).exp(),
+        FORECAST_DRAWS
     )?;
+    writeln!(w, "initial particles: {}", count_note(setup.target))?;
     let per_rank = setup.memory_per_rank(ranks);
     writeln!(
         w,

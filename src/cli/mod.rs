@@ -37,54 +37,66 @@ pub struct Cli {
 pub enum Command {
     /// Validate a job and print its derived numerics, without running.
     Check {
+        /// The job file (TOML; see the README for its keys).
         job: PathBuf,
         /// Override a job key (repeatable), e.g. --set numerics.particles=200000
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
         /// Shortcut for --set numerics.particles=N
-        #[arg(long)]
+        #[arg(long, value_name = "N")]
         particles: Option<u64>,
     },
     /// Run a job, writing DIR/observables.h5.
     Run {
+        /// The job file (TOML; see the README for its keys).
         job: PathBuf,
-        #[arg(long)]
+        /// Output directory: observables.h5, job.toml, checkpoints (created if needed).
+        #[arg(long, value_name = "DIR")]
         out: PathBuf,
+        /// Override a job key (repeatable), e.g. --set numerics.particles=200000
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
-        #[arg(long)]
+        /// Shortcut for --set numerics.particles=N
+        #[arg(long, value_name = "N")]
         particles: Option<u64>,
-        /// Overwrite results already in DIR.
+        /// Overwrite results already in DIR (its old checkpoints are deleted).
         #[arg(long)]
         force: bool,
-        /// Stop at the first synchronisation time ≥ T (fs).
+        /// Stop with a checkpoint at the first synchronisation time ≥ T (fs).
         #[arg(long, value_name = "T_FS", allow_negative_numbers = true)]
         until: Option<f64>,
         /// Stop with a checkpoint before this much wall time has passed (HH:MM or HH:MM:SS).
         #[arg(long, value_name = "HH:MM")]
         walltime: Option<String>,
         /// rayon threads per rank (default: all cores / ranks on this node).
-        #[arg(long)]
+        #[arg(long, value_name = "N")]
         threads: Option<usize>,
     },
     /// Continue a run from the newest valid checkpoint in DIR, on any number of ranks.
     Resume {
+        /// The run directory (the --out of `run`), holding its checkpoints.
         dir: PathBuf,
-        /// Stop again at the first synchronisation time ≥ T (fs).
+        /// Stop again with a checkpoint at the first synchronisation time ≥ T (fs).
         #[arg(long, value_name = "T_FS", allow_negative_numbers = true)]
         until: Option<f64>,
+        /// Stop with a checkpoint before this much wall time has passed (HH:MM or HH:MM:SS).
         #[arg(long, value_name = "HH:MM")]
         walltime: Option<String>,
-        #[arg(long)]
+        /// rayon threads per rank (default: all cores / ranks on this node).
+        #[arg(long, value_name = "N")]
         threads: Option<usize>,
     },
     /// Solve the job exactly on a grid (N ≤ 3), writing DIR/reference.h5.
     Reference {
+        /// The job file (TOML; see the README for its keys).
         job: PathBuf,
-        #[arg(long)]
+        /// Output directory for reference.h5 (created if needed).
+        #[arg(long, value_name = "DIR")]
         out: PathBuf,
+        /// Override a job key (repeatable), e.g. --set numerics.particles=200000
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
+        /// Overwrite a reference.h5 already in DIR.
         #[arg(long)]
         force: bool,
         /// Grid points per axis (default: chosen from the job).
@@ -96,26 +108,38 @@ pub enum Command {
     },
     /// Compare two result files observable by observable.
     Compare {
+        /// The result file to judge (e.g. observables.h5).
         a: PathBuf,
+        /// The result file to compare it with (e.g. reference.h5); relative distances are
+        /// taken against it.
         b: PathBuf,
         /// Exit 1 when a density distance exceeds X (relative L1).
-        #[arg(long, allow_negative_numbers = true)]
+        #[arg(long, value_name = "X", allow_negative_numbers = true)]
         tolerance: Option<f64>,
     },
     /// Write PNG pictures of a result file.
     Plot {
+        /// The result file to draw (observables.h5 or reference.h5).
         file: PathBuf,
-        #[arg(long)]
+        /// Directory for the PNG files (created if needed).
+        #[arg(long, value_name = "DIR")]
         out: PathBuf,
-        /// Comma-separated output times (fs); default: first, middle, last.
+        /// Comma-separated output times (fs) within the file's range; a time between
+        /// outputs is drawn at the nearest one, with a note; default: first, middle, last.
         #[arg(long, value_delimiter = ',')]
         times: Option<Vec<f64>>,
         /// A second file (e.g. reference.h5) drawn on the same axes.
-        #[arg(long)]
+        #[arg(long, value_name = "B.h5")]
         against: Option<PathBuf>,
     },
     /// Print what a result or checkpoint file holds.
-    Inspect { file: PathBuf },
+    Inspect {
+        /// A result file or a checkpoint.
+        file: PathBuf,
+        /// Print only the output times (fs), one per line.
+        #[arg(long)]
+        times: bool,
+    },
     /// Strong and weak scaling series: launch `run` at several rank counts, write CSV and PNG.
     Scaling(signfold::study::scaling::Options),
     /// Measure the Monte Carlo against the exact reference over particle counts and
@@ -283,7 +307,7 @@ fn serial(cmd: Command) -> anyhow::Result<ExitCode> {
             times,
             against,
         } => plot::command(&file, &out, times.as_deref(), against.as_deref()),
-        Command::Inspect { file } => inspect::command(&file),
+        Command::Inspect { file, times } => inspect::command(&file, times),
         Command::Reference {
             job,
             out,

@@ -9,7 +9,11 @@ pub fn command(
     times: Option<&[f64]>,
     against: Option<&Path>,
 ) -> anyhow::Result<ExitCode> {
-    for path in signfold::viz::plot::plot(file, out, times, against)? {
+    let plotted = signfold::viz::plot::plot(file, out, times, against)?;
+    for note in &plotted.notes {
+        eprintln!("signfold: note: {note}");
+    }
+    for path in plotted.paths {
         println!("{}", path.display());
     }
     Ok(ExitCode::SUCCESS)

@@ -69,17 +69,20 @@ fn show(p: Progress) {
     match p {
         Progress::Started {
             particles,
+            draws,
             ranks,
             threads,
             abs_over_net,
             dropped,
         } => println!(
-            "signfold: {particles} particles at t = 0 on {ranks} rank(s) ({threads} threads each); ∫|W|/∫W = {abs_over_net:.3}{}",
+            "signfold: {particles} particles at t = 0 on {ranks} rank(s) ({threads} threads each); ∫|W|/∫W = {abs_over_net:.4}{}\n\
+             signfold: {}",
             if dropped > 0 {
                 format!("; {dropped} outside domain or momentum range, not kept")
             } else {
                 String::new()
-            }
+            },
+            super::check::count_note(draws)
         ),
         Progress::Resumed {
             dir,

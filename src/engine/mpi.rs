@@ -7,14 +7,36 @@ use mpi::datatype::{Partition, PartitionMut};
 use mpi::topology::{Communicator, SimpleCommunicator};
 use mpi::traits::*;
 
+/// Environment variable that lowers the words one rank sends another in one round of
+/// [`Comm::exchange`] (default: as many as MPI's 32-bit counts allow). For tests of the
+/// chunked path; read once, when the communicator is made.
+pub const CHUNK_ENV: &str = "SIGNFOLD_EXCHANGE_CHUNK_WORDS";
+
 /// MPI_COMM_WORLD.
 pub struct World {
     world: SimpleCommunicator,
+    /// Largest number of words one rank sends one other rank in one all-to-all round.
+    chunk_words: usize,
 }
 
 impl World {
+    /// The world communicator; the exchange chunk from [`CHUNK_ENV`] when set (a positive
+    /// integer), else the 32-bit limit.
     pub fn new(world: SimpleCommunicator) -> Self {
-        World { world }
+        let chunk = std::env::var(CHUNK_ENV)
+            .ok()
+            .and_then(|v| v.trim().parse::<usize>().ok())
+            .filter(|&c| c > 0)
+            .unwrap_or(i32::MAX as usize);
+        World::with_chunk(world, chunk)
+    }
+
+    /// The world communicator with at most `chunk_words` words per rank pair and round.
+    pub fn with_chunk(world: SimpleCommunicator, chunk_words: usize) -> Self {
+        World {
+            world,
+            chunk_words: chunk_words.max(1),
+        }
     }
 
     /// The raw communicator, for MPI-IO (parallel HDF5).
@@ -64,32 +86,66 @@ impl Comm for World {
             .all_reduce_into(&v, &mut out, SystemOperation::max());
         out
     }
+    /// Messages of any length (64-bit counts): sent in rounds of at most `chunk_words` words
+    /// per rank pair, and at most i32::MAX / P, so that every count and displacement of a
+    /// round fits MPI's 32-bit `int`. Every rank takes part in the same number of rounds.
     fn exchange(&self, send: &[Vec<u64>]) -> Vec<Vec<u64>> {
         let p = self.size();
         assert_eq!(send.len(), p);
-        let send_counts: Vec<i32> = send
-            .iter()
-            .map(|v| {
-                i32::try_from(v.len())
-                    .expect("one message per rank pair must stay below 2^31 words")
-            })
-            .collect();
-        let mut recv_counts = vec![0i32; p];
+        let send_counts: Vec<u64> = send.iter().map(|v| v.len() as u64).collect();
+        let mut recv_counts = vec![0u64; p];
         self.world
             .all_to_all_into(&send_counts[..], &mut recv_counts[..]);
-        let flat: Vec<u64> = send.concat();
-        let sd = displacements(&send_counts);
-        let rd = displacements(&recv_counts);
-        let total: usize = recv_counts.iter().map(|&c| c as usize).sum();
-        let mut recv = vec![0u64; total];
-        {
-            let sp = Partition::new(&flat[..], &send_counts[..], &sd[..]);
-            let mut rp = PartitionMut::new(&mut recv[..], &recv_counts[..], &rd[..]);
-            self.world.all_to_all_varcount_into(&sp, &mut rp);
+        let per_pair = self.chunk_words.min(i32::MAX as usize / p).max(1) as u64;
+        let mine = send_counts
+            .iter()
+            .chain(&recv_counts)
+            .map(|&c| c.div_ceil(per_pair))
+            .max()
+            .unwrap_or(0);
+        let mut rounds = mine;
+        self.world
+            .all_reduce_into(&mine, &mut rounds, SystemOperation::max());
+        let mut out: Vec<Vec<u64>> = recv_counts
+            .iter()
+            .map(|&c| Vec::with_capacity(c as usize))
+            .collect();
+        // The part of a message of `total` words that goes in round `round`.
+        let part = |total: u64, round: u64| -> (usize, usize) {
+            let from = (round * per_pair).min(total);
+            (from as usize, (total - from).min(per_pair) as usize)
+        };
+        for round in 0..rounds {
+            let sc: Vec<i32> = send_counts
+                .iter()
+                .map(|&c| part(c, round).1 as i32)
+                .collect();
+            let rc: Vec<i32> = recv_counts
+                .iter()
+                .map(|&c| part(c, round).1 as i32)
+                .collect();
+            let flat: Vec<u64> = send
+                .iter()
+                .zip(&send_counts)
+                .flat_map(|(v, &c)| {
+                    let (from, len) = part(c, round);
+                    v[from..from + len].iter().copied()
+                })
+                .collect();
+            let sd = displacements(&sc);
+            let rd = displacements(&rc);
+            let mut recv = vec![0u64; rc.iter().map(|&c| c as usize).sum()];
+            {
+                let sp = Partition::new(&flat[..], &sc[..], &sd[..]);
+                let mut rp = PartitionMut::new(&mut recv[..], &rc[..], &rd[..]);
+                self.world.all_to_all_varcount_into(&sp, &mut rp);
+            }
+            for (r, o) in out.iter_mut().enumerate() {
+                let from = rd[r] as usize;
+                o.extend_from_slice(&recv[from..from + rc[r] as usize]);
+            }
         }
-        (0..p)
-            .map(|r| recv[rd[r] as usize..(rd[r] + recv_counts[r]) as usize].to_vec())
-            .collect()
+        out
     }
     fn gather_all(&self, mine: &[u64]) -> Vec<Vec<u64>> {
         let p = self.size();

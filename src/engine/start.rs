@@ -14,9 +14,7 @@ pub fn initial_state(setup: &Setup, comm: &dyn Comm) -> Result<(State, InitialRe
     let d = setup.target;
     let (r, p) = (comm.rank() as u64, comm.size() as u64);
     let (from, to) = (d * r / p, d * (r + 1) / p);
-    let sums = initial::sum_draws(&w, setup.seed, from, to);
-    let mut s = [sums.abs, sums.net];
-    comm.sum_i128(&mut s);
+    let s = draw_sums(&w, setup.seed, d, comm);
     let admit = Inside(setup);
     let plan = initial::EmitPlan {
         seed: setup.seed,
@@ -44,6 +42,7 @@ pub fn initial_state(setup: &Setup, comm: &dyn Comm) -> Result<(State, InitialRe
     }
     let report = InitialReport {
         abs_over_net: s[0] as f64 / s[1] as f64,
+        draws: d,
         particles: total as u64,
         dropped: dropped as u64,
     };
@@ -63,10 +62,29 @@ pub fn initial_state(setup: &Setup, comm: &dyn Comm) -> Result<(State, InitialRe
     Ok((state, report))
 }
 
+/// Σ|r_d| and Σr_d (fixed point) over the initial draws d ∈ [0, draws), each rank summing
+/// its contiguous share: the same integers on any rank count. With `draws` = the target
+/// (`numerics.particles`) their ratio is the ∫|W|/∫W a run reports at t = 0.
+pub fn draw_sums(w: &initial::NBodyWigner, seed: u64, draws: u64, comm: &dyn Comm) -> [i128; 2] {
+    let (r, p) = (comm.rank() as u64, comm.size() as u64);
+    let sums = initial::sum_draws(w, seed, draws * r / p, draws * (r + 1) / p);
+    let mut s = [sums.abs, sums.net];
+    comm.sum_i128(&mut s);
+    s
+}
+
+/// ∫|W|/∫W estimated from the first `draws` initial draws of the run (all ranks).
+pub fn sign_ratio(setup: &Setup, draws: u64, comm: &dyn Comm) -> Result<f64> {
+    let s = draw_sums(&setup.initial_state()?, setup.seed, draws, comm);
+    Ok(s[0] as f64 / s[1] as f64)
+}
+
 /// Facts about the initial sampling.
 pub struct InitialReport {
     /// ∫|W| / ∫W estimated from the draws (particles per unit of net norm).
     pub abs_over_net: f64,
+    /// Initial draws (the target `numerics.particles`); each emits ⌊|w_d|/w₀ + U⌋ copies.
+    pub draws: u64,
     pub particles: u64,
     /// Emitted particles that fell outside the domain or momentum range (not kept).
     pub dropped: u64,

@@ -12,6 +12,8 @@ use crate::engine::state::State;
 use crate::io::names::{self, checkpoint as cp};
 use crate::io::results::{ResultFile, read_str_attr, write_str_attr};
 use crate::physics::estimators::Departed;
+use crate::physics::kernel::KernelTable;
+use crate::physics::numerics::Setup;
 use crate::physics::particles::Store;
 use crate::physics::rng;
 use anyhow::{Context, Result, anyhow, bail};
@@ -49,6 +51,173 @@ pub fn list(dir: &Path) -> Vec<u64> {
         .unwrap_or_default();
     steps.sort_unstable_by(|a, b| b.cmp(a));
     steps
+}
+
+/// What a file named `checkpoint-<step>…` in a run directory is.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+enum Part {
+    Particles,
+    Results,
+    /// A temporary file of a write that did not finish.
+    Temporary,
+}
+
+/// Every checkpoint file in `dir`: (step, part, path).
+fn files(dir: &Path) -> Vec<(u64, Part, PathBuf)> {
+    let results_tmp = format!("{}.tmp", cp::RESULTS_SUFFIX);
+    std::fs::read_dir(dir)
+        .map(|rd| {
+            rd.filter_map(|e| e.ok())
+                .filter_map(|e| {
+                    let name = e.file_name().into_string().ok()?;
+                    let rest = name.strip_prefix(cp::FILE_PREFIX)?;
+                    let (num, tail) = rest.split_at_checked(10)?;
+                    let step = num.parse().ok()?;
+                    let part = match tail {
+                        t if t == cp::FILE_SUFFIX => Part::Particles,
+                        t if t == cp::RESULTS_SUFFIX => Part::Results,
+                        t if t == cp::TMP_SUFFIX || t == results_tmp => Part::Temporary,
+                        _ => return None,
+                    };
+                    Some((step, part, e.path()))
+                })
+                .collect()
+        })
+        .unwrap_or_default()
+}
+
+/// Remove the checkpoint files of `dir` that belong to no checkpoint: a results copy
+/// whose particle file does not exist (the run ended between the two writes) and the
+/// temporary files of an unfinished write. Returns what was removed. Called by rank 0
+/// while it holds the directory's lock (no write of this run is under way).
+pub fn remove_leftovers(dir: &Path) -> Vec<PathBuf> {
+    let all = files(dir);
+    let has_particles = |s: u64| all.iter().any(|&(t, p, _)| t == s && p == Part::Particles);
+    all.iter()
+        .filter(|(s, p, _)| match p {
+            Part::Particles => false,
+            Part::Results => !has_particles(*s),
+            Part::Temporary => true,
+        })
+        .filter(|(_, _, path)| std::fs::remove_file(path).is_ok())
+        .map(|(_, _, path)| path.clone())
+        .collect()
+}
+
+/// Remove every checkpoint file of `dir` (a forced new run must not resume old ones).
+pub fn remove_all(dir: &Path) {
+    for (_, _, path) in files(dir) {
+        let _ = std::fs::remove_file(path);
+    }
+}
+
+/// The parts of a run's numerics that decide its trajectory and that the program computes
+/// rather than reads from the job (floating-point FFTs, libm, SIMD code paths may differ
+/// between builds and machines): key in the `numerics_hash` attribute, and what it covers.
+pub const NUMERICS_PARTS: [(&str, &str); 3] = [
+    ("one_body_table", "the one-body kernel table"),
+    ("pair_table", "the pair kernel table"),
+    (
+        "derived",
+        "the derived numerics (sync step, step count, Γ_max, transfer lattice, momentum cap, \
+         annihilation cells, budget, output steps)",
+    ),
+];
+
+/// One 64-bit hash per entry of [`NUMERICS_PARTS`], over IEEE bit patterns and counts.
+pub fn numerics_fingerprint(setup: &Setup) -> [u64; 3] {
+    let table = |t: &Option<KernelTable>| -> u64 {
+        let Some(t) = t else { return 0 };
+        let mut w: Vec<u64> = vec![
+            t.points as u64,
+            t.cap as u64,
+            t.lo.to_bits(),
+            t.dx.to_bits(),
+            t.period.to_bits(),
+            t.dk.to_bits(),
+            t.gamma_max.to_bits(),
+        ];
+        w.extend(t.values.iter().map(|v| v.to_bits()));
+        w.extend(t.gamma.iter().map(|v| v.to_bits()));
+        rng::hash(&w)
+    };
+    let mut d: Vec<u64> = [
+        setup.dt,
+        setup.gamma_max,
+        setup.k_max,
+        setup.mesh_dx,
+        setup.lc,
+        setup.rolloff,
+        setup.period,
+        setup.dk,
+        setup.cell_x,
+        setup.cell_k,
+        setup.trigger,
+        setup.lo,
+        setup.hi,
+        setup.mass,
+    ]
+    .iter()
+    .map(|v| v.to_bits())
+    .collect();
+    d.extend([
+        setup.steps,
+        setup.cap as u64,
+        setup.budget,
+        setup.groups as u64,
+    ]);
+    d.extend(&setup.output_steps);
+    [table(&setup.table1), table(&setup.table2), rng::hash(&d)]
+}
+
+/// The `numerics_hash` attribute: `one_body_table=<16 hex> pair_table=<…> derived=<…>`.
+pub fn numerics_hash(setup: &Setup) -> String {
+    NUMERICS_PARTS
+        .iter()
+        .zip(numerics_fingerprint(setup))
+        .map(|((key, _), h)| format!("{key}={h:016x}"))
+        .collect::<Vec<_>>()
+        .join(" ")
+}
+
+/// Compare a checkpoint's `numerics_hash` with the numerics this program rebuilt from its
+/// job. A mismatch is an error naming what differs; a checkpoint written before the hash
+/// existed (`None`) cannot be verified: the returned note says so.
+pub fn verify_numerics(stored: Option<&str>, setup: &Setup, shown: &str) -> Result<Option<String>> {
+    let Some(stored) = stored else {
+        return Ok(Some(format!(
+            "{shown} has no {} attribute (written by an older version): the kernel tables rebuilt for the resume \
+             cannot be verified against those of the original run",
+            cp::ATTR_NUMERICS_HASH
+        )));
+    };
+    let value = |key: &str| {
+        stored
+            .split_whitespace()
+            .find_map(|kv| kv.strip_prefix(key)?.strip_prefix('='))
+    };
+    let differ: Vec<String> = NUMERICS_PARTS
+        .iter()
+        .zip(numerics_fingerprint(setup))
+        .filter_map(|((key, what), h)| {
+            let now = format!("{h:016x}");
+            match value(key) {
+                Some(v) if v == now => None,
+                Some(v) => Some(format!("{what} ({key}: stored {v}, rebuilt {now})")),
+                None => Some(format!("{what} ({key}: not stored, rebuilt {now})")),
+            }
+        })
+        .collect();
+    if differ.is_empty() {
+        return Ok(None);
+    }
+    bail!(
+        "{shown}: this program rebuilds numerics that differ from those the run was written with: {}. \
+         The run would not continue the same trajectory (a different program version, build or machine type \
+         computes the tables differently). Resume with the build and machine type that wrote the checkpoint, or \
+         start again with `signfold run … --force`",
+        differ.join("; ")
+    )
 }
 
 /// Order-independent checksum of particles: the wrapping sum over particles of a mix of
@@ -141,8 +310,16 @@ fn preflight(dir: &Path, bytes: f64) -> Result<()> {
 }
 
 /// Everything the run needs to continue bit-identically, besides the particles.
-fn write_state(f: &hdf5::File, st: &State, job: &LoadedJob, time: f64) -> hdf5::Result<()> {
+fn write_state(
+    f: &hdf5::File,
+    st: &State,
+    job: &LoadedJob,
+    time: f64,
+    numerics: &str,
+) -> hdf5::Result<()> {
     write_str_attr(f, names::ATTR_FILE_TYPE, CHECKPOINT_TYPE)
+        .map_err(|e| hdf5::Error::from(e.to_string().as_str()))?;
+    write_str_attr(f, cp::ATTR_NUMERICS_HASH, numerics)
         .map_err(|e| hdf5::Error::from(e.to_string().as_str()))?;
     write_str_attr(f, names::ATTR_JOB, &job.text)
         .map_err(|e| hdf5::Error::from(e.to_string().as_str()))?;
@@ -181,15 +358,17 @@ fn write_state(f: &hdf5::File, st: &State, job: &LoadedJob, time: f64) -> hdf5::
     Ok(())
 }
 
-/// Write checkpoint `st.step` into `dir` (collective). `results` is significant on rank 0.
-/// Keeps the newest `keep` checkpoints. On failure every rank returns an error and the
-/// previous checkpoints are untouched.
+/// Write checkpoint `st.step` into `dir` (collective). `results` is significant on rank 0;
+/// `numerics` is the [`numerics_hash`] of the run. Keeps the newest `keep` checkpoints. On
+/// failure every rank returns an error and the previous checkpoints are untouched.
+#[allow(clippy::too_many_arguments)]
 pub fn write(
     dir: &Path,
     st: &State,
     results: &ResultFile,
     job: &LoadedJob,
     time: f64,
+    numerics: &str,
     keep: usize,
     comm: &dyn Comm,
 ) -> Result<()> {
@@ -202,7 +381,12 @@ pub fn write(
     };
     agree(comm, r).context("checkpoint: writing the results copy")?;
     let final_path = particle_path(dir, st.step);
-    let tmp = final_path.with_extension("h5.tmp");
+    let tmp = dir.join(format!(
+        "{}{:010}{}",
+        cp::FILE_PREFIX,
+        st.step,
+        cp::TMP_SUFFIX
+    ));
     let (off, total) = offsets(st.store.len(), comm);
     // Parallel HDF5 cannot close a file cleanly after a failed write (its ranks fall out of
     // step inside H5Fclose), so refuse up front what would fail: a file-size limit or a
@@ -253,7 +437,7 @@ pub fn write(
     let f = f.expect("created on every rank");
     let mut sets = None;
     let meta = (|| -> hdf5::Result<()> {
-        write_state(&f, st, job, time)?;
+        write_state(&f, st, job, time, numerics)?;
         f.new_attr::<u64>()
             .create(cp::ATTR_PARTICLES)?
             .write_scalar(&total)?;
@@ -334,6 +518,9 @@ pub struct Restored {
     pub state: State,
     pub results: ResultFile,
     pub time: f64,
+    /// The particle file read, and its `numerics_hash` (absent in older checkpoints).
+    pub path: PathBuf,
+    pub numerics_hash: Option<String>,
     /// Newer checkpoints that were not usable, and why (for the command line to report).
     pub skipped: Vec<String>,
 }
@@ -369,6 +556,7 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
     let time: f64 = f.attr(cp::ATTR_TIME)?.read_scalar()?;
     let text = read_str_attr(&f, names::ATTR_JOB)?;
     let job_dir = read_str_attr(&f, cp::ATTR_JOB_DIR).unwrap_or_default();
+    let numerics_hash = read_str_attr(&f, cp::ATTR_NUMERICS_HASH).ok();
     let s = f.group(cp::STATE_GROUP)?;
     let v = |name: &str| -> Result<Vec<i64>> { Ok(s.dataset(name)?.read_raw::<i64>()?) };
     let (s0, left, right, momentum) = (
@@ -448,6 +636,8 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
         state,
         results,
         time,
+        path,
+        numerics_hash,
         skipped: Vec::new(),
     })
 }

@@ -65,6 +65,25 @@ struct Entry {
 
 /// Summarise `file`: type and versions, job text, output times, grids, datasets with shapes
 /// and units, particle counts, last time written, completeness and size.
+/// The output times (fs) of a result file, in order; a checkpoint's one time.
+pub fn output_times(file: &Path) -> Result<Vec<f64>> {
+    let f = open_hdf5(file)?;
+    let shown = file.display();
+    if let Ok(a) = f.attr(names::checkpoint::ATTR_TIME)
+        && let Ok(t) = a.read_scalar::<f64>()
+    {
+        return Ok(vec![t]);
+    }
+    f.dataset(names::TIME.name)
+        .and_then(|d| d.read_raw::<f64>())
+        .map_err(|_| {
+            anyhow!(
+                "{shown}: no `{}` dataset: not a result file",
+                names::TIME.name
+            )
+        })
+}
+
 pub fn inspect(file: &Path) -> Result<String> {
     let shown = file.display();
     let f = open_hdf5(file)?;
@@ -158,6 +177,20 @@ pub fn inspect(file: &Path) -> Result<String> {
                     ),
                 );
                 line(&mut s, "last time", &format!("{} fs", num(t[t.len() - 1])));
+                let shown: Vec<String> = t.iter().take(12).map(|&v| num(v)).collect();
+                line(
+                    &mut s,
+                    "times (fs)",
+                    &format!(
+                        "{}{}",
+                        shown.join(", "),
+                        if t.len() > 12 {
+                            ", … (`signfold inspect FILE --times` lists all)"
+                        } else {
+                            ""
+                        }
+                    ),
+                );
             }
             Some(_) => line(&mut s, "output times", "none written yet"),
             None => line(&mut s, "output times", "- (no `time` dataset)"),

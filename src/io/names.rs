@@ -118,6 +118,8 @@ pub mod checkpoint {
     pub const ATTR_PARTICLES: &str = "particles";
     pub const ATTR_COORDINATES: &str = "coordinates";
     pub const ATTR_CHECKSUM: &str = "checksum";
+    /// Hashes of the kernel tables and derived numerics the checkpoint was written with.
+    pub const ATTR_NUMERICS_HASH: &str = "numerics_hash";
     /// Written last: the file is complete.
     pub const ATTR_COMPLETE: &str = "complete";
     pub const STATE_GROUP: &str = "state";
@@ -133,4 +135,6 @@ pub mod checkpoint {
     pub const FILE_PREFIX: &str = "checkpoint-";
     pub const FILE_SUFFIX: &str = ".h5";
     pub const RESULTS_SUFFIX: &str = "-results.h5";
+    /// Suffix of a particle file being written (renamed to `FILE_SUFFIX` when complete).
+    pub const TMP_SUFFIX: &str = ".h5.tmp";
 }

@@ -58,11 +58,9 @@ pub fn run(
         progress,
     )?;
     if root {
-        // Older checkpoints of a forced rerun must not be resumed by mistake.
-        for step in checkpoint::list(&opts.out) {
-            let _ = std::fs::remove_file(checkpoint::particle_path(&opts.out, step));
-            let _ = std::fs::remove_file(checkpoint::results_path(&opts.out, step));
-        }
+        // Older checkpoints of a forced rerun (also a results copy or a temporary file left
+        // by a run that ended mid-write) must not be resumed by mistake.
+        checkpoint::remove_all(&opts.out);
         let _ = std::fs::write(opts.out.join(names::JOB_COPY_FILE), &loaded.text);
     }
     let mut timers = Timers::default();
@@ -72,6 +70,7 @@ pub fn run(
     if root {
         progress(Progress::Started {
             particles: init.particles,
+            draws: init.draws,
             ranks: comm.size(),
             threads: rayon::current_num_threads(),
             abs_over_net: init.abs_over_net,
@@ -129,12 +128,32 @@ pub fn resume(
         comm,
         progress,
     )?;
+    if comm.is_root() {
+        // A results copy without its particle file, or a temporary file, is what a run
+        // that ended between two writes left behind: no checkpoint, so removed.
+        for p in checkpoint::remove_leftovers(dir) {
+            progress(Progress::Warning(format!(
+                "removed {}, left behind by a run that ended while writing a checkpoint",
+                p.display()
+            )));
+        }
+    }
     let mut timers = Timers::default();
     let t0 = Instant::now();
     let restored = checkpoint::newest_valid(dir, comm)?;
     let setup = Setup::new(&restored.job)?;
+    // The tables rebuilt here must be those the run was written with (every rank checks).
+    let (note, checked) = match checkpoint::verify_numerics(
+        restored.numerics_hash.as_deref(),
+        &setup,
+        &restored.path.display().to_string(),
+    ) {
+        Ok(note) => (note, Ok(())),
+        Err(e) => (None, Err(e)),
+    };
+    agree(comm, checked)?;
     if comm.is_root() {
-        for w in &restored.skipped {
+        for w in restored.skipped.iter().chain(&note) {
             progress(Progress::Warning(w.clone()));
         }
         progress(Progress::Resumed {
@@ -220,32 +239,33 @@ fn drive(
     }
     .min(setup.steps);
     let ck = &setup.job.checkpoint;
+    // Every rank must have built the same tables (a heterogeneous cluster may not).
+    let numerics = checkpoint::numerics_hash(setup);
+    same_numerics_on_every_rank(setup, comm)?;
+    // The one checkpoint write of the run (early stops, stops in the loop, cadence).
+    let save = |st: &State, out: &ResultFile, timers: &mut Timers| -> Result<f64> {
+        let t0 = Instant::now();
+        let time = st.step as f64 * setup.dt;
+        checkpoint::write(&opts.out, st, out, loaded, time, &numerics, ck.keep, comm)?;
+        timers.add(Phase::Checkpoint, t0);
+        Ok(t0.elapsed().as_secs_f64())
+    };
     if opts.until.is_some() && stop_step <= st.step && st.step < setup.steps {
         // --until at or before the current time: stop here, resumable. A fresh run writes
         // its checkpoint now; a resumed one already stands on the checkpoint it read.
         if fresh {
-            let t0 = Instant::now();
-            checkpoint::write(
-                &opts.out,
-                &st,
-                &out,
-                loaded,
-                st.step as f64 * setup.dt,
-                ck.keep,
-                comm,
-            )?;
-            timers.add(Phase::Checkpoint, t0);
+            save(&st, &out, &mut timers)?;
         }
-        if let Some(rows) = phase_table(&timers, started, comm) {
-            progress(Progress::Phases(rows));
-        }
-        if root {
-            progress(Progress::Stopped {
-                time_fs: st.step as f64 * setup.dt,
-                why: StopReason::Until,
-                dir: opts.out.clone(),
-            });
-        }
+        report_stop(
+            &st,
+            setup,
+            opts,
+            &timers,
+            started,
+            StopReason::Until,
+            comm,
+            progress,
+        );
         return Ok(Ending::Checkpointed);
     }
     let every_steps = ck.every.map(|t| ((t / setup.dt).round() as u64).max(1));
@@ -406,37 +426,17 @@ fn drive(
             });
         timers.add(Phase::Bookkeeping, t0);
         if unfinished && (signal || out_of_time || until || cadence) {
-            let t0 = Instant::now();
-            checkpoint::write(
-                &opts.out,
-                &st,
-                &out,
-                loaded,
-                st.step as f64 * setup.dt,
-                ck.keep,
-                comm,
-            )?;
-            longest_checkpoint = longest_checkpoint.max(t0.elapsed().as_secs_f64());
+            longest_checkpoint = longest_checkpoint.max(save(&st, &out, &mut timers)?);
             last_checkpoint = Instant::now();
-            timers.add(Phase::Checkpoint, t0);
             if signal || out_of_time || until {
-                if let Some(rows) = phase_table(&timers, started, comm) {
-                    progress(Progress::Phases(rows));
-                }
-                if root {
-                    let why = if signal {
-                        StopReason::Signal
-                    } else if out_of_time {
-                        StopReason::Walltime
-                    } else {
-                        StopReason::Until
-                    };
-                    progress(Progress::Stopped {
-                        time_fs: st.step as f64 * setup.dt,
-                        why,
-                        dir: opts.out.clone(),
-                    });
-                }
+                let why = if signal {
+                    StopReason::Signal
+                } else if out_of_time {
+                    StopReason::Walltime
+                } else {
+                    StopReason::Until
+                };
+                report_stop(&st, setup, opts, &timers, started, why, comm, progress);
                 return Ok(Ending::Checkpointed);
             }
         }
@@ -518,6 +518,54 @@ fn forced_warning(setup: &Setup, annihilation: &Annihilation, pass: &Pass, t: f6
         setup.dk,
         exchange_note(setup),
     )
+}
+
+/// The end of a run stopped early with a checkpoint: the phase table, then the line that
+/// says where it stopped (batch scripts look for it).
+#[allow(clippy::too_many_arguments)]
+fn report_stop(
+    st: &State,
+    setup: &Setup,
+    opts: &RunOptions,
+    timers: &Timers,
+    started: Instant,
+    why: StopReason,
+    comm: &dyn Comm,
+    progress: Sink,
+) {
+    if let Some(rows) = phase_table(timers, started, comm) {
+        progress(Progress::Phases(rows));
+    }
+    if comm.is_root() {
+        progress(Progress::Stopped {
+            time_fs: st.step as f64 * setup.dt,
+            why,
+            dir: opts.out.clone(),
+        });
+    }
+}
+
+/// Refuse to run when a rank built different kernel tables or numerics than rank 0 (a
+/// cluster of mixed machine types): the ranks would not follow one trajectory.
+fn same_numerics_on_every_rank(setup: &Setup, comm: &dyn Comm) -> Result<()> {
+    let mine = checkpoint::numerics_fingerprint(setup);
+    let all = comm.gather_all(&mine);
+    for (r, theirs) in all.iter().enumerate() {
+        let differ: Vec<&str> = checkpoint::NUMERICS_PARTS
+            .iter()
+            .zip(theirs.iter().zip(&all[0]))
+            .filter(|(_, (a, b))| a != b)
+            .map(|((_, what), _)| *what)
+            .collect();
+        if !differ.is_empty() {
+            bail!(
+                "rank {r} built {} differently from rank 0, so the ranks would not follow one trajectory: \
+                 run all ranks on one machine type with one build",
+                differ.join(" and ")
+            );
+        }
+    }
+    Ok(())
 }
 
 /// ", exchange period 2π/d = … 1/nm" for identical particles (d the largest orbital

@@ -18,6 +18,8 @@ pub enum Progress {
     /// The initial particles are drawn.
     Started {
         particles: u64,
+        /// Initial draws = the target count `numerics.particles`.
+        draws: u64,
         ranks: usize,
         threads: usize,
         /// ∫|W|/∫W estimated from the draws.

@@ -41,6 +41,7 @@ pub struct Options {
     /// Also run the interacting pair at 10^7 particles (about ten minutes more).
     #[arg(long)]
     pub large: bool,
+    /// Directory for the results and the runs behind them (OUT/runs).
     #[arg(long, default_value = "scaling-results")]
     pub out: PathBuf,
     /// Directory of the demo jobs.

@@ -83,6 +83,7 @@ pub struct Options {
     /// Directory for the CSV files, pictures and machine.txt.
     #[arg(long, default_value = "scaling-results")]
     pub out: PathBuf,
+    /// Override a job key in every run (repeatable), e.g. --set numerics.end_time=20
     #[arg(long = "set", value_name = "KEY=VALUE")]
     pub set: Vec<String>,
     /// MPI launcher and its options; `-n P PROGRAM run …` follows.

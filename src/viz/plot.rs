@@ -23,17 +23,25 @@ pub const DENSITY_SIZE: (u32, u32) = (960, 600);
 /// Size in pixels of the norm/energy/particles picture.
 pub const HISTORY_SIZE: (u32, u32) = (960, 840);
 
+/// What `plot` wrote, and notes on the times it drew.
+pub struct Plotted {
+    pub paths: Vec<PathBuf>,
+    /// One line per requested time that is not an output time: the output drawn instead.
+    pub notes: Vec<String>,
+}
+
 /// Write the pictures of `file` into `out` (created if needed) and return their paths.
 ///
-/// `times` (fs) are snapped to the nearest output times; by default the first, middle and
-/// last outputs are drawn. `against` is a second result file whose density, norm and
-/// energy are drawn on the same axes.
+/// `times` (fs) must lie within the file's output times; one between two outputs is drawn
+/// at the nearest output, with a note. By default the first, middle and last outputs are
+/// drawn. `against` is a second result file whose density, norm and energy are drawn on
+/// the same axes.
 pub fn plot(
     file: &Path,
     out: &Path,
     times: Option<&[f64]>,
     against: Option<&Path>,
-) -> Result<Vec<PathBuf>> {
+) -> Result<Plotted> {
     ensure_font()?;
     let a = ResultFile::read(file)?;
     let b = against
@@ -43,7 +51,13 @@ pub fn plot(
     let wigner = required(&a, file, names::WIGNER.name, &[nx, nk])?;
     let density = required(&a, file, names::DENSITY.name, &[nx])?;
     let pair = optional(&a, file, names::PAIR_DENSITY.name, &[nx, nx])?;
-    let picks = snap_times(a.times(), times).with_context(|| format!("{}", file.display()))?;
+    let (picks, notes) = match times {
+        Some(req) => pick_times(a.times(), req).with_context(|| format!("{}", file.display()))?,
+        None => (
+            snap_times(a.times(), None).with_context(|| format!("{}", file.display()))?,
+            Vec::new(),
+        ),
+    };
     std::fs::create_dir_all(out).with_context(|| format!("cannot create {}", out.display()))?;
     let mut written = Vec::new();
 
@@ -92,7 +106,43 @@ pub fn plot(
     if render_history(&path, (file, &a), b.as_ref())? {
         written.push(path);
     }
-    Ok(written)
+    Ok(Plotted {
+        paths: written,
+        notes,
+    })
+}
+
+/// The outputs to draw for requested times `req` (fs): a time outside the first to last
+/// output is refused with the available range; one between outputs is drawn at the
+/// nearest output and named in a note. Sorted, without repeats.
+pub fn pick_times(times: &[f64], req: &[f64]) -> Result<(Vec<usize>, Vec<String>)> {
+    let picks = snap_times(times, Some(req))?;
+    let (first, last) = (times[0], times[times.len() - 1]);
+    let tol = 1e-9 * first.abs().max(last.abs()).max(1.0);
+    let mut notes = Vec::new();
+    for &r in req {
+        if r < first - tol || r > last + tol {
+            let list: Vec<String> = times.iter().take(12).map(|&t| short(t)).collect();
+            bail!(
+                "--times {}: no output at that time; the file's {} output times run from {} to {} fs ({}{})",
+                short(r),
+                times.len(),
+                short(first),
+                short(last),
+                list.join(", "),
+                if times.len() > 12 { ", …" } else { "" }
+            );
+        }
+        let near = snap_times(times, Some(&[r]))?[0];
+        if (times[near] - r).abs() > tol {
+            notes.push(format!(
+                "--times {}: not an output time; drew the nearest output, t = {} fs",
+                short(r),
+                short(times[near])
+            ));
+        }
+    }
+    Ok((picks, notes))
 }
 
 /// Indices of the output times to draw: the nearest output to each requested time, or the
