@@ -29,7 +29,6 @@ use signfold::engine::budget::Annihilation;
 use signfold::engine::comm::{Comm, Solo};
 use signfold::engine::mpi::World;
 use signfold::engine::start;
-use signfold::physics::cells::Level;
 use signfold::physics::flight::advance;
 use signfold::physics::rng::Stream;
 use std::alloc::{GlobalAlloc, Layout, System};
@@ -134,23 +133,11 @@ fn main() {
     // The run's path: one Annihilator for all calls; warm it up and check it agrees.
     let mut kept = Annihilator::default();
     let mut s = store.clone();
-    kept.run(
-        &setup,
-        Cells::Level(&mesh, Level::FINEST),
-        &mut s,
-        step,
-        comm,
-    );
+    kept.run(&setup, Cells::Level(&mesh, 0), &mut s, step, comm);
     assert_eq!(support::fingerprint(&s), print, "kept buffers, {comm_name}");
     let mut s = store.clone();
     let a = allocations();
-    kept.run(
-        &setup,
-        Cells::Level(&mesh, Level::FINEST),
-        &mut s,
-        step,
-        comm,
-    );
+    kept.run(&setup, Cells::Level(&mesh, 0), &mut s, step, comm);
     let warm_allocs = allocations() - a;
     let mut s = store.clone();
     let a = allocations();
@@ -185,13 +172,7 @@ fn main() {
     let mut run = || {
         let mut s = store.clone();
         let t = Instant::now();
-        let r = kept.run(
-            &setup,
-            Cells::Level(&mesh, Level::FINEST),
-            &mut s,
-            step,
-            comm,
-        );
+        let r = kept.run(&setup, Cells::Level(&mesh, 0), &mut s, step, comm);
         let d = t.elapsed();
         black_box((r, &s));
         d

@@ -10,7 +10,6 @@ use signfold::config::job;
 use signfold::engine::annihilate::{Annihilator, CellMesh, Cells, annihilate};
 use signfold::engine::comm::Solo;
 use signfold::engine::start;
-use signfold::physics::cells::Level;
 use signfold::physics::flight::advance_in_place;
 use signfold::physics::numerics::Setup;
 use signfold::physics::particles::Store;
@@ -117,34 +116,18 @@ fn check(file: &str, overrides: &[&str], intervals: u64) {
     two.install(|| {
         ann.run(
             &setup,
-            Cells::Level(&mesh, Level::FINEST),
+            Cells::Level(&mesh, 0),
             &mut bigger,
             intervals + 1,
             &Solo,
         )
     });
     let mut s = store.clone();
-    two.install(|| {
-        ann.run(
-            &setup,
-            Cells::Level(&mesh, Level::FINEST),
-            &mut s,
-            intervals,
-            &Solo,
-        )
-    });
+    two.install(|| ann.run(&setup, Cells::Level(&mesh, 0), &mut s, intervals, &Solo));
     assert!(s == expected, "{file}: two threads, kept buffers");
     // Annihilating again changes nothing: no cell is mixed any more.
     let again = s.clone();
-    one.install(|| {
-        ann.run(
-            &setup,
-            Cells::Level(&mesh, Level::FINEST),
-            &mut s,
-            intervals,
-            &Solo,
-        )
-    });
+    one.install(|| ann.run(&setup, Cells::Level(&mesh, 0), &mut s, intervals, &Solo));
     assert!(s == again, "{file}: a second pass must be a no-op");
 }
 
@@ -183,10 +166,10 @@ fn three_fermions_keep_what_the_rule_names() {
 /// tree predicted. (A contract of docs/method.md §3.1, counts worked by hand.)
 #[test]
 fn adaptive_resolution_merges_alike_signs_and_keeps_patterns() {
-    use signfold::engine::resolution::{Resolution, Z_STRUCTURE, merge_path, rung};
+    use signfold::engine::resolution::{LADDER, Resolution, Z_STRUCTURE};
     let setup = setup("barrier-packet.toml", &[]);
     let mesh = CellMesh::new(&setup).unwrap();
-    let (cx, _) = mesh.cell_sizes(Level::FINEST);
+    let (cx, _) = mesh.cell_sizes(0);
     let nx = ((setup.hi - setup.lo) / cx) as u64;
     let j = nx / 4; // an even finest x cell well inside the domain: A = 2j, B = 2j + 1
     let xa = setup.lo + (2 * j) as f64 * cx + 0.5 * cx;
@@ -204,10 +187,7 @@ fn adaptive_resolution_merges_alike_signs_and_keeps_patterns() {
     };
     let run = |store: &Store, target: u64| {
         let mut res = Resolution::default();
-        // A long remaining time: the path doubles x first, so A and B merge at step 1.
-        let path = merge_path(&mesh, setup.mass, 1e6, 1.0);
-        assert_eq!((path[1].x, path[1].k), (1, 0));
-        let out = res.resolve(&mesh, &path, store, target, &Solo);
+        let out = res.resolve(&mesh, store, target, &Solo);
         let mut s = store.clone();
         let rep = Annihilator::default().run(&setup, Cells::Keys(res.keys()), &mut s, 1, &Solo);
         assert_eq!(
@@ -222,14 +202,17 @@ fn adaptive_resolution_merges_alike_signs_and_keeps_patterns() {
         (0, 4),
         "nothing merged while the target allows"
     );
-    let (r, after) = run(&alike, 2);
+    let (rung, after) = run(&alike, 2);
     assert_eq!(after, 0);
-    assert!(rung(r).0 >= 1 && rung(r).1 <= Z_STRUCTURE, "rung {r}");
+    assert!(
+        LADDER[rung].0 >= 1 && LADDER[rung].1 <= Z_STRUCTURE,
+        "rung {rung}"
+    );
     let pattern = fill((40, 10), (10, 40));
     for target in [1000, 60] {
         assert_eq!(run(&pattern, target), (0, 60), "a resolved pattern is kept");
     }
-    let (r, after) = run(&pattern, 10);
+    let (rung, after) = run(&pattern, 10);
     assert_eq!(after, 0);
-    assert!(rung(r).1 > 5.0, "rung {r}");
+    assert!(LADDER[rung].1 > 5.0, "rung {rung}");
 }

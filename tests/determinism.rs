@@ -105,11 +105,10 @@ fn merged_cells_are_identical_on_any_partition() {
             &r,
         ];
         let base = run_with(&sub, 1, 1, &job, &extra);
-        let lx = &base.records["annihilation_level_x"].1;
-        let lk = &base.records["annihilation_level_k"].1;
+        let coarsest = &base.records["annihilation_coarsest_level"].1;
         assert!(
-            lx.iter().chain(lk).any(|&l| l > 0.0),
-            "{resolution}: the budget must force merged cells, got levels {lx:?} × {lk:?}"
+            coarsest.iter().any(|&l| l > 0.0),
+            "{resolution}: the budget must force merged cells, got levels {coarsest:?}"
         );
         for (ranks, threads) in [(1, 2), (2, 1), (3, 1)] {
             let other = run_with(&sub, ranks, threads, &job, &extra);

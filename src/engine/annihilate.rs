@@ -77,7 +77,7 @@ struct Decision {
 #[derive(Clone, Copy)]
 pub enum Cells<'a> {
     /// The particle's cell at one level of the nested mesh.
-    Level(&'a CellMesh, crate::physics::cells::Level),
+    Level(&'a CellMesh, u32),
     /// One key per particle in store order (the leaves of the adaptive resolution).
     Keys(&'a [u128]),
 }
@@ -508,13 +508,7 @@ pub fn annihilate(
     interval: u64,
     comm: &dyn Comm,
 ) -> Report {
-    Annihilator::default().run(
-        setup,
-        Cells::Level(mesh, crate::physics::cells::Level::FINEST),
-        store,
-        interval,
-        comm,
-    )
+    Annihilator::default().run(setup, Cells::Level(mesh, 0), store, interval, comm)
 }
 
 /// Even out particle counts over ranks (global order: rank, then position in the store).

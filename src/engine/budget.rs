@@ -11,8 +11,8 @@
 use crate::config::job::Resolution;
 use crate::engine::annihilate::{Annihilator, Cells, Report};
 use crate::engine::comm::Comm;
-use crate::engine::resolution::{self, Z_STRUCTURE, merge_path, rung};
-use crate::physics::cells::{CellMesh, Level, MAX_LEVEL};
+use crate::engine::resolution::{self, LADDER, Z_STRUCTURE};
+use crate::physics::cells::{CellMesh, MAX_LEVEL};
 use crate::physics::numerics::Setup;
 use crate::physics::particles::Store;
 use anyhow::Result;
@@ -21,11 +21,10 @@ use anyhow::Result;
 #[derive(Clone, Debug, Default)]
 pub struct Pass {
     pub report: Report,
-    /// Mean doublings per axis of the cells that held both signs, over their samples
-    /// (fixed: the level used).
+    /// Mean level of the samples in cells that held both signs (fixed: the level used).
     pub mean_level: f64,
     /// Coarsest level of such cells.
-    pub coarsest_level: Level,
+    pub coarsest_level: u32,
     /// Adaptive: the χ² normal-score threshold used (2: the sign patterns the samples
     /// resolve are kept; larger: cells whose signs were spread unalike were merged).
     /// Fixed: NaN.
@@ -52,12 +51,11 @@ impl Annihilation {
     }
 
     /// Cell sizes of `level`, nm and 1/nm.
-    pub fn cell_sizes(&self, level: Level) -> (f64, f64) {
+    pub fn cell_sizes(&self, level: u32) -> (f64, f64) {
         self.mesh.cell_sizes(level)
     }
 
-    /// Annihilate `store` in place after `interval` sync steps (which also keys the
-    /// survivor priorities).
+    /// Annihilate `store` in place (`interval` keys the survivor priorities).
     pub fn run(
         &mut self,
         setup: &Setup,
@@ -68,15 +66,7 @@ impl Annihilation {
         let target = setup.budget / 2;
         match setup.resolution {
             Resolution::Adaptive => {
-                // k merges are weighed by how far they move mass by the end of the run, or
-                // at least by the next output.
-                let remaining = setup.steps.saturating_sub(interval) as f64 * setup.dt;
-                let outputs = setup.output_steps.len().max(2) as f64 - 1.0;
-                let floor = setup.steps as f64 * setup.dt / outputs;
-                let path = merge_path(&self.mesh, setup.mass, remaining, floor);
-                let out = self
-                    .resolution
-                    .resolve(&self.mesh, &path, store, target, comm);
+                let out = self.resolution.resolve(&self.mesh, store, target, comm);
                 let cells = Cells::Keys(self.resolution.keys());
                 let mut report = self.annihilator.run(setup, cells, store, interval, comm);
                 debug_assert_eq!(report.after, out.after, "the tree's count is exact");
@@ -86,30 +76,18 @@ impl Annihilation {
                     report,
                     mean_level: out.mean_level(),
                     coarsest_level: out.coarsest_level(),
-                    threshold: rung(out.rung).1,
-                    forced: rung(out.rung).1 > Z_STRUCTURE,
+                    threshold: LADDER[out.rung].1,
+                    forced: LADDER[out.rung].1 > Z_STRUCTURE,
                 }
             }
             Resolution::Fixed => {
                 let a = &mut self.annihilator;
                 let mesh = &self.mesh;
-                let mut total = a.run(
-                    setup,
-                    Cells::Level(mesh, Level::FINEST),
-                    store,
-                    interval,
-                    comm,
-                );
+                let mut total = a.run(setup, Cells::Level(mesh, 0), store, interval, comm);
                 let mut level = 0;
                 while total.after > target && level < MAX_LEVEL {
                     level += 1;
-                    let r = a.run(
-                        setup,
-                        Cells::Level(mesh, Level::uniform(level)),
-                        store,
-                        interval,
-                        comm,
-                    );
+                    let r = a.run(setup, Cells::Level(mesh, level), store, interval, comm);
                     total.after = r.after;
                     total.local_cells = r.local_cells;
                     total.words_sent += r.words_sent;
@@ -120,7 +98,7 @@ impl Annihilation {
                 Pass {
                     report: total,
                     mean_level: f64::from(level),
-                    coarsest_level: Level::uniform(level),
+                    coarsest_level: level,
                     threshold: f64::NAN,
                     forced: level > 0,
                 }

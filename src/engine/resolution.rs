@@ -6,9 +6,8 @@
 //! shape of the majority ones: no bias where the two signs are spread alike over the cell,
 //! a bias where they are not (a sign pattern finer than the cell, such as the exchange
 //! oscillation of identical particles or the interference of a split packet). So cells are
-//! merged bottom-up along a path of levels from the finest cells (each step doubles the
-//! cells on one axis, x or k, see [`merge_path`]), while the merge is harmless at the
-//! resolution of the children: a parent cell is merged only if all its
+//! merged bottom-up, from the finest level towards level [`MAX_LEVEL`], while the merge is
+//! harmless at the resolution of the children: a parent cell is merged only if all its
 //! children are and the signs are spread over its children alike within the statistics —
 //! Pearson's χ² test of homogeneity of the 2 × K table (sign × occupied child),
 //!
@@ -20,8 +19,8 @@
 //! Where particles are dense the test resolves fine structure and the cells stay small;
 //! in sparse regions the test sees little, so the level cap of the rung bounds the merging.
 //!
-//! The rung used is the first (see [`rung`]) whose annihilation leaves at most the target
-//! count (half the run's sample budget): cells grow one step at a time where no sign
+//! The rung used is the first of [`LADDER`] whose annihilation leaves at most the target
+//! count (half the run's sample budget): cells grow one level at a time where no sign
 //! pattern shows (a merge displaces the cancelled samples' mass by up to the cell size, so
 //! finer merges come first); rungs that merge detected patterns are forced by the budget
 //! and reported. Every decision uses global counts per finest cell only (the χ² sums are exact
@@ -29,7 +28,7 @@
 
 use crate::engine::cell_table::CellTable;
 use crate::engine::comm::Comm;
-use crate::physics::cells::{CellMesh, Level, MAX_LEVEL};
+use crate::physics::cells::{CellMesh, MAX_LEVEL};
 use crate::physics::particles::Store;
 use crate::physics::rng;
 
@@ -37,48 +36,28 @@ use crate::physics::rng;
 /// test would be 1.96); thresholds above it are forced by the budget and reported.
 pub const Z_STRUCTURE: f64 = 2.0;
 
-/// Steps of the merge path: each doubles the cells on one axis, up to MAX_LEVEL per axis.
-pub const STEPS: usize = 2 * MAX_LEVEL as usize;
-const LEVELS: usize = STEPS + 1;
-
-/// Threshold z* of a rung, least merging first: rung r ≤ STEPS lets cells grow r steps
-/// along the path where the samples show no sign pattern (z ≤ [`Z_STRUCTURE`]); rung 0
-/// merges nothing that holds both signs. The rungs after, forced by the budget and
-/// reported, merge up to the end of the path at z* = 3, 5, 8, 13 and finally regardless of
-/// structure.
-const FORCED: [f64; 5] = [3.0, 5.0, 8.0, 13.0, f64::INFINITY];
-pub const RUNGS: usize = LEVELS + FORCED.len();
-
-/// (path steps a merge may reach, threshold z*) of rung `r`.
-pub fn rung(r: usize) -> (usize, f64) {
-    if r < LEVELS {
-        (r, Z_STRUCTURE)
-    } else {
-        (STEPS, FORCED[r - LEVELS])
-    }
-}
-
-/// The merge path for a pass with `remaining` fs of the run left: from the finest cells,
-/// each step doubles the axis whose cells now move mass less far. A cell of size δx moves
-/// mass by up to δx at once; one of size δk by up to v(δk)·T = ħδk·T/m by the end of the
-/// run (T = `remaining`, at least `floor`), so merges in k are cheap late in a run and
-/// costly early (ties go to x).
-pub fn merge_path(mesh: &CellMesh, mass: f64, remaining: f64, floor: f64) -> [Level; LEVELS] {
-    let t = remaining.max(floor);
-    let mut path = [Level::FINEST; LEVELS];
-    for s in 1..LEVELS {
-        let mut l = path[s - 1];
-        let (dx, dk) = mesh.cell_sizes(l);
-        let reach_k = crate::physics::units::velocity(dk, mass) * t;
-        if (dx <= reach_k && l.x < MAX_LEVEL) || l.k == MAX_LEVEL {
-            l.x += 1;
-        } else {
-            l.k += 1;
-        }
-        path[s] = l;
-    }
-    path
-}
+/// The rungs, least merging first: (coarsest level a merge may reach, threshold z* on the
+/// normal score of the χ² test). The first merges nothing that holds both signs
+/// (annihilation at the finest cells); the next ones let cells grow one level at a time
+/// where the samples show no sign pattern (z ≤ [`Z_STRUCTURE`]); the last ones, forced by
+/// the budget and reported, merge patterns the samples do resolve, the very last every
+/// occupied cell of the coarsest level.
+pub const LADDER: [(u32, f64); 12] = [
+    (0, Z_STRUCTURE),
+    (1, Z_STRUCTURE),
+    (2, Z_STRUCTURE),
+    (3, Z_STRUCTURE),
+    (4, Z_STRUCTURE),
+    (5, Z_STRUCTURE),
+    (MAX_LEVEL, Z_STRUCTURE),
+    (MAX_LEVEL, 3.0),
+    (MAX_LEVEL, 5.0),
+    (MAX_LEVEL, 8.0),
+    (MAX_LEVEL, 13.0),
+    (MAX_LEVEL, f64::INFINITY),
+];
+const RUNGS: usize = LADDER.len();
+const LEVELS: usize = MAX_LEVEL as usize + 1;
 /// Marks "not a leaf on this rung" in per-node leaf levels.
 const NONE: u8 = u8::MAX;
 /// Fixed-point scale of the χ² terms (2⁻²⁰): integer sums do not depend on their order.
@@ -87,41 +66,36 @@ const FIXED: f64 = (1u64 << 20) as f64;
 /// What one resolution decided, global numbers.
 #[derive(Clone, Debug, Default, PartialEq)]
 pub struct Outcome {
-    /// The rung used (see [`rung`]).
+    /// Index into [`LADDER`] of the rung used.
     pub rung: usize,
     /// Samples that annihilation at these leaves leaves.
     pub after: u64,
-    /// Samples in leaves holding both signs, by the leaf's step along the path.
-    pub mixed_by_step: [u64; LEVELS],
-    /// The merge path of this pass.
-    pub path: [Level; LEVELS],
+    /// Samples in leaves holding both signs, by the leaf's level 0..=MAX_LEVEL.
+    pub mixed_by_level: [u64; LEVELS],
     /// 64-bit words this rank sent and its wall seconds.
     pub words_sent: u64,
     pub seconds: f64,
 }
 
 impl Outcome {
-    /// Mean over the samples in mixed leaves of the leaf's doublings per axis,
-    /// (a + b)/2 for cells 2^a × 2^b the finest (0 when there are none).
+    /// Mean level of the samples in mixed leaves (0 when there are none).
     pub fn mean_level(&self) -> f64 {
-        let total: u64 = self.mixed_by_step.iter().sum();
+        let total: u64 = self.mixed_by_level.iter().sum();
         if total == 0 {
             return 0.0;
         }
         let s: f64 = (0..LEVELS)
-            .map(|i| {
-                f64::from(self.path[i].x + self.path[i].k) / 2.0 * self.mixed_by_step[i] as f64
-            })
+            .map(|l| l as f64 * self.mixed_by_level[l] as f64)
             .sum();
         s / total as f64
     }
 
     /// Coarsest level holding samples of mixed leaves.
-    pub fn coarsest_level(&self) -> Level {
+    pub fn coarsest_level(&self) -> u32 {
         (0..LEVELS)
             .rev()
-            .find(|&i| self.mixed_by_step[i] > 0)
-            .map_or(Level::FINEST, |i| self.path[i])
+            .find(|&l| self.mixed_by_level[l] > 0)
+            .unwrap_or(0) as u32
     }
 }
 
@@ -137,7 +111,7 @@ struct Node {
     /// Σ over children of (T·mᵢ − Q·tᵢ)²/tᵢ in units of 2⁻²⁰.
     chi_fixed: u128,
     /// Bit r: mergeable on rung r (all descendants merged and no structure at z ≤ Z[r]).
-    mask: u32,
+    mask: u16,
 }
 
 /// The bottom-up merge tree over a set of finest cells with global counts.
@@ -149,7 +123,7 @@ struct Tree {
     leaf: Vec<Vec<[u8; RUNGS]>>,
 }
 
-const ALL: u32 = (1 << RUNGS) - 1;
+const ALL: u16 = (1 << RUNGS) - 1;
 
 /// Normal score of a χ² value with `df` degrees of freedom (Wilson–Hilferty, 1931).
 pub fn wilson_hilferty(chi2: f64, df: f64) -> f64 {
@@ -163,7 +137,6 @@ impl Tree {
     fn build(
         &mut self,
         mesh: &CellMesh,
-        path: &[Level; LEVELS],
         keys: &[u128],
         plus: &[u64],
         minus: &[u64],
@@ -179,7 +152,7 @@ impl Tree {
             mask: ALL,
             ..Node::default()
         }));
-        for l in 0..STEPS {
+        for l in 0..MAX_LEVEL as usize {
             let (lower, upper) = self.nodes.split_at_mut(l + 1);
             let (children, parents) = (&mut lower[l], &mut upper[0]);
             let (below, above) = self.tables.split_at_mut(l + 1);
@@ -188,7 +161,7 @@ impl Tree {
             table.clear(2 * children.len());
             parents.clear();
             for (c, node) in children.iter_mut().enumerate() {
-                let j = table.insert(mesh.lift(child_keys[c], path[l + 1]));
+                let j = table.insert(mesh.lift(child_keys[c], l as u32 + 1));
                 if j == parents.len() {
                     parents.push(Node {
                         mask: ALL,
@@ -220,10 +193,9 @@ impl Tree {
                 let (pp, qq) = (p.plus as f64, p.minus as f64);
                 let chi2 = p.chi_fixed as f64 / FIXED / (pp * qq);
                 let z = wilson_hilferty(chi2, f64::from(p.kids - 1));
-                let mut bits = 0u32;
-                for r in 0..RUNGS {
-                    let (cap, zr) = rung(r);
-                    if l < cap && z <= zr {
+                let mut bits = 0u16;
+                for (r, &(cap, zr)) in LADDER.iter().enumerate() {
+                    if (l as u32) < cap && z <= zr {
                         bits |= 1 << r;
                     }
                 }
@@ -240,7 +212,7 @@ impl Tree {
             for node in &self.nodes[l] {
                 let mut out = [NONE; RUNGS];
                 for (r, o) in out.iter_mut().enumerate() {
-                    let from_parent = if l < STEPS {
+                    let from_parent = if l < MAX_LEVEL as usize {
                         upper[0][node.parent as usize][r]
                     } else {
                         NONE
@@ -291,7 +263,6 @@ impl Resolution {
     pub fn resolve(
         &mut self,
         mesh: &CellMesh,
-        path: &[Level; LEVELS],
         store: &Store,
         target: u64,
         comm: &dyn Comm,
@@ -325,9 +296,9 @@ impl Resolution {
         let levels: Vec<u8>;
         let mut counts = [0i64; RUNGS * (1 + LEVELS)];
         if ranks == 1 {
-            let (after, by_level) =
-                self.tree
-                    .build(mesh, path, &self.fine.keys, &self.plus, &self.minus);
+            let (after, by_level) = self
+                .tree
+                .build(mesh, &self.fine.keys, &self.plus, &self.minus);
             fill(&mut counts, &after, &by_level);
             comm.sum_i64(&mut counts);
             let rung = choose(&counts, target);
@@ -336,7 +307,7 @@ impl Resolution {
             let mut send = vec![Vec::new(); ranks];
             for c in 0..cells {
                 let key = self.fine.keys[c];
-                let o = owner(mesh.lift(key, path[STEPS]), ranks);
+                let o = owner(mesh.lift(key, MAX_LEVEL), ranks);
                 send[o].extend_from_slice(&[
                     key as u64,
                     (key >> 64) as u64,
@@ -363,13 +334,9 @@ impl Resolution {
                     entry_cell.push(g);
                 }
             }
-            let (after, by_level) = self.tree.build(
-                mesh,
-                path,
-                &self.owned.keys,
-                &self.owned_plus,
-                &self.owned_minus,
-            );
+            let (after, by_level) =
+                self.tree
+                    .build(mesh, &self.owned.keys, &self.owned_plus, &self.owned_minus);
             fill(&mut counts, &after, &by_level);
             comm.sum_i64(&mut counts);
             let rung = choose(&counts, target);
@@ -386,7 +353,7 @@ impl Resolution {
             let mut lv = vec![0u8; cells];
             let mut next = vec![0usize; ranks];
             for c in 0..cells {
-                let o = owner(mesh.lift(self.fine.keys[c], path[STEPS]), ranks);
+                let o = owner(mesh.lift(self.fine.keys[c], MAX_LEVEL), ranks);
                 lv[c] = answers[o][next[o]] as u8;
                 next[o] += 1;
             }
@@ -396,19 +363,18 @@ impl Resolution {
         // 3. Each particle's leaf key.
         self.leaf_key.clear();
         self.leaf_key
-            .extend((0..cells).map(|c| mesh.lift(self.fine.keys[c], path[usize::from(levels[c])])));
+            .extend((0..cells).map(|c| mesh.lift(self.fine.keys[c], u32::from(levels[c]))));
         self.keys.clear();
         self.keys
             .extend(self.cell_of.iter().map(|&c| self.leaf_key[c as usize]));
-        let mut mixed_by_step = [0u64; LEVELS];
-        for (l, m) in mixed_by_step.iter_mut().enumerate() {
+        let mut mixed_by_level = [0u64; LEVELS];
+        for (l, m) in mixed_by_level.iter_mut().enumerate() {
             *m = counts[RUNGS + rung * LEVELS + l] as u64;
         }
         Outcome {
             rung,
             after: counts[rung] as u64,
-            mixed_by_step,
-            path: *path,
+            mixed_by_level,
             words_sent: words,
             seconds: t0.elapsed().as_secs_f64(),
         }

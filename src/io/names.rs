@@ -80,13 +80,11 @@ pub const ANNIHILATION_PREFIX: &str = "annihilation_";
 pub const ANNIHILATION_TIME: Dataset = ds("annihilation_time", "fs");
 pub const ANNIHILATION_BEFORE: Dataset = ds("annihilation_before", "1");
 pub const ANNIHILATION_CANCELLED: Dataset = ds("annihilation_cancelled", "1");
-/// The resolution used: mean doublings per axis of the cells that held both signs (over
-/// their samples), the coarsest such cells (levels in x and k: cells 2^level × the finest;
-/// their sizes), and (adaptive resolution) the χ² normal-score threshold that merged cells
-/// (NaN for fixed cells).
+/// The resolution used: mean level of the samples in mixed cells (cells 2^level × the
+/// finest), the cell sizes at the coarsest level used, and (adaptive resolution) the χ²
+/// normal-score threshold that merged cells (NaN for fixed cells).
 pub const ANNIHILATION_LEVEL: Dataset = ds("annihilation_level", "1");
-pub const ANNIHILATION_LEVEL_X: Dataset = ds("annihilation_level_x", "1");
-pub const ANNIHILATION_LEVEL_K: Dataset = ds("annihilation_level_k", "1");
+pub const ANNIHILATION_COARSEST_LEVEL: Dataset = ds("annihilation_coarsest_level", "1");
 pub const ANNIHILATION_THRESHOLD: Dataset = ds("annihilation_threshold", "1");
 pub const ANNIHILATION_CELL_X: Dataset = ds("annihilation_cell_x", "nm");
 pub const ANNIHILATION_CELL_K: Dataset = ds("annihilation_cell_k", "1/nm");

@@ -1,48 +1,25 @@
 //! Annihilation cells in phase space (docs/method.md §3): the key of a configuration's
 //! cell, which merges a cell with its exchange images for identical particles, on a nested
-//! hierarchy of meshes (level (a, b): cells 2^a times the finest in x and 2^b in k).
+//! hierarchy of meshes (level ℓ: cells 2^ℓ times the finest in x and in k).
 
 use crate::config::job::CellKind;
 use crate::physics::numerics::Setup;
 use crate::physics::rng;
 use anyhow::{Result, bail};
 
-/// Coarsest level of the hierarchy on each axis: cells up to 2^MAX_LEVEL times the finest
-/// in x and in k.
+/// Coarsest level of the hierarchy: cells 2^MAX_LEVEL times the finest in x and in k.
 pub const MAX_LEVEL: u32 = 6;
 
-/// Bits of the level tag in a key: 4 for the x level, 4 for the k level.
-const LEVEL_BITS: u32 = 8;
-
-/// A level of the hierarchy: cells 2^x times the finest in x and 2^k times in k.
-#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
-pub struct Level {
-    pub x: u32,
-    pub k: u32,
-}
-
-impl Level {
-    pub const FINEST: Level = Level { x: 0, k: 0 };
-
-    /// The same level on both axes (whole-level coarsening of fixed cells).
-    pub fn uniform(l: u32) -> Level {
-        Level { x: l, k: l }
-    }
-
-    fn tag(self) -> u128 {
-        u128::from((self.x << 4) | self.k)
-    }
-}
+/// Bits of the level tag in a key (levels 0..=15).
+const LEVEL_BITS: u32 = 4;
 
 /// The nested cell meshes of one run, and how their keys are packed into 128 bits.
 ///
-/// The finest level has `nx` × (`nk_in` + 2) cells per particle: x cells of `cell_x` nm from
-/// `x0`, k cells of `cell_k` 1/nm from `k0` (numbered 1..=nk_in) and two overflow cells (0
-/// below, nk_in + 1 above). A coarser cell is defined as the image of the finest cell: x
-/// index ⌊i/2^a⌋, in-range k index ⌊(i − 1)/2^b⌋ + 1, the overflow cells to the coarse
-/// level's own overflow cells. So every cell of a level lies in exactly one cell of any
-/// coarser level (the hierarchy is nested by construction), and a key can be lifted to a
-/// coarser level without the particle's coordinates.
+/// Level 0 has `nx` × (`nk_in` + 2) cells per particle: x cells of `cell_x` nm from `x0`,
+/// k cells of `cell_k` 1/nm from `k0` (numbered 1..=nk_in) and two overflow cells (0 below,
+/// nk_in + 1 above). `nx` and `nk_in` are multiples of 2^MAX_LEVEL, so that the cell of
+/// level ℓ + 1 holding a cell of level ℓ is a function of that cell alone: x index ⌊i/2⌋,
+/// in-range k index ⌊(i − 1)/2⌋ + 1, overflow cells to overflow cells.
 pub struct CellMesh {
     kind: CellKind,
     sort: bool,
@@ -82,8 +59,10 @@ impl CellMesh {
             // Deviations from the centre of mass lie within ±L and ±2·reach.
             CellKind::Relative => (-width, 2.0 * width, -2.0 * reach, 4.0 * reach),
         };
-        let nx = (xr / cell_x).ceil().max(1.0) as u64;
-        let nk_in = (kr / cell_k).ceil().max(1.0) as u64;
+        let block = 1u64 << MAX_LEVEL;
+        let round = |v: f64| ((v.ceil().max(1.0) as u64).div_ceil(block)) * block;
+        let nx = round(xr / cell_x);
+        let nk_in = round(kr / cell_k);
         let bits_k = bits_for(nk_in + 2);
         let bits_one = bits_for(nx) + bits_k;
         let needed = bits_one as usize * setup.n + 16 + LEVEL_BITS as usize;
@@ -111,11 +90,9 @@ impl CellMesh {
     }
 
     /// Cell sizes of `level`: nm and 1/nm.
-    pub fn cell_sizes(&self, level: Level) -> (f64, f64) {
-        (
-            self.cell_x * f64::from(1u32 << level.x),
-            self.cell_k * f64::from(1u32 << level.k),
-        )
+    pub fn cell_sizes(&self, level: u32) -> (f64, f64) {
+        let s = f64::from(1u32 << level);
+        (self.cell_x * s, self.cell_k * s)
     }
 
     /// Occupied-cell capacity of the finest mesh (its volume), for reports.
@@ -126,13 +103,13 @@ impl CellMesh {
     /// Key of a particle's finest cell (level 0).
     #[inline]
     pub fn key(&self, x: &[f64], k: &[f64], id: u64) -> u128 {
-        self.key_at(x, k, id, Level::FINEST)
+        self.key_at(x, k, id, 0)
     }
 
     /// Key of a particle's cell at `level`: group, level tag, then the (sorted, for
     /// identical particles) per-particle cells.
     #[inline]
-    pub fn key_at(&self, x: &[f64], k: &[f64], id: u64, level: Level) -> u128 {
+    pub fn key_at(&self, x: &[f64], k: &[f64], id: u64, level: u32) -> u128 {
         let n = self.n;
         let mut buf = [0u64; 8];
         let mut big;
@@ -157,14 +134,14 @@ impl CellMesh {
             // k cell 1 + ⌊(k − k0)/cell_k⌋ in range, 0 below and nk_in + 1 above the range.
             let t = (k[i] - km - self.k0) / self.cell_k;
             let ik = if t < 0.0 { 0 } else { (t as u64 + 1).min(top) };
-            cells[i] = self.lift_between((ix << self.bits_k) | ik, Level::FINEST, level);
+            cells[i] = self.lift_between((ix << self.bits_k) | ik, 0, level);
         }
         self.pack(cells, rng::group_of(id), level)
     }
 
     /// Sort (identical particles) and pack cells with the group and level tag.
     #[inline]
-    fn pack(&self, cells: &mut [u64], group: u32, level: Level) -> u128 {
+    fn pack(&self, cells: &mut [u64], group: u32, level: u32) -> u128 {
         if self.sort {
             if cells.len() == 2 {
                 if cells[0] > cells[1] {
@@ -174,7 +151,7 @@ impl CellMesh {
                 cells.sort_unstable();
             }
         }
-        let mut key: u128 = ((group as u128) << LEVEL_BITS) | level.tag();
+        let mut key: u128 = ((group as u128) << LEVEL_BITS) | level as u128;
         for &c in cells.iter() {
             key = (key << self.bits_one) | c as u128;
         }
@@ -183,19 +160,15 @@ impl CellMesh {
 
     /// Level recorded in a key.
     #[inline]
-    pub fn level_of(&self, key: u128) -> Level {
-        let tag = ((key >> (self.bits_one as usize * self.n)) as u32) & ((1 << LEVEL_BITS) - 1);
-        Level {
-            x: tag >> 4,
-            k: tag & 15,
-        }
+    pub fn level_of(&self, key: u128) -> u32 {
+        ((key >> (self.bits_one as usize * self.n)) as u32) & ((1 << LEVEL_BITS) - 1)
     }
 
-    /// The key of the cell at `level` that holds the cell `key` (of a level no coarser on
-    /// either axis): the nested hierarchy makes this a function of the key alone.
-    pub fn lift(&self, key: u128, level: Level) -> u128 {
+    /// The key of the cell at `level` that holds the cell `key` (of a finer level): the
+    /// nested hierarchy makes this a function of the key alone.
+    pub fn lift(&self, key: u128, level: u32) -> u128 {
         let from = self.level_of(key);
-        debug_assert!(from.x <= level.x && from.k <= level.k);
+        debug_assert!(from <= level);
         if from == level {
             return key;
         }
@@ -219,25 +192,24 @@ impl CellMesh {
         self.pack(cells, group, level)
     }
 
-    /// A packed cell of level `from` carried to level `to` (no finer on either axis).
+    /// A packed cell of level `from` carried to level `to` (≥ from).
     #[inline]
-    fn lift_between(&self, cell: u64, from: Level, to: Level) -> u64 {
+    fn lift_between(&self, cell: u64, from: u32, to: u32) -> u64 {
         if from == to {
             return cell;
         }
         let kmask = (1u64 << self.bits_k) - 1;
         let (ix, ik) = (cell >> self.bits_k, cell & kmask);
-        // In-range k cells of a level: ⌈nk_in / 2^b⌉, numbered from 1; the top overflow
-        // cell follows them.
-        let top = |b: u32| ((self.nk_in - 1) >> b) + 2;
+        let top_from = (self.nk_in >> from) + 1;
+        let d = to - from;
         let ik = if ik == 0 {
             0
-        } else if ik == top(from.k) {
-            top(to.k)
+        } else if ik == top_from {
+            (self.nk_in >> to) + 1
         } else {
-            ((ik - 1) >> (to.k - from.k)) + 1
+            ((ik - 1) >> d) + 1
         };
-        ((ix >> (to.x - from.x)) << self.bits_k) | ik
+        ((ix >> d) << self.bits_k) | ik
     }
 }
 
@@ -246,7 +218,7 @@ mod tests {
     use super::*;
 
     fn mesh(n: usize, sort: bool, kind: CellKind) -> CellMesh {
-        let (nx, nk_in) = (125u64, 191u64);
+        let (nx, nk_in) = (128u64, 192u64);
         let bits_k = bits_for(nk_in + 2);
         CellMesh {
             kind,
@@ -263,11 +235,9 @@ mod tests {
         }
     }
 
-    /// Lifting a particle's finest key to a level gives its key at that level, including
-    /// coordinates outside the x and k ranges (edge and overflow cells), lifting composes
-    /// (finest → mid → level equals finest → level), and a key of a coarser level is never
-    /// a key of a particle at another cell of that level (nestedness). A property of the
-    /// nested meshes.
+    /// Lifting a particle's level-0 key to level ℓ gives its level-ℓ key, for every level,
+    /// including coordinates outside the x and k ranges (edge and overflow cells), and
+    /// lifting composes (0 → ℓ → ℓ′ equals 0 → ℓ′). A property of the nested meshes.
     #[test]
     fn lifting_a_key_equals_binning_at_the_coarser_level() {
         for (n, sort, kind) in [
@@ -289,14 +259,14 @@ mod tests {
                 let k: Vec<f64> = (0..n).map(|_| -4.0 + 8.0 * next()).collect();
                 let id = rng::make_id((trial % 3) as u32, trial as u64);
                 let k0 = m.key(&x, &k, id);
-                assert_eq!(m.level_of(k0), Level::FINEST);
-                for (a, b) in [(1, 0), (0, 1), (2, 3), (6, 6), (6, 2), (3, 6)] {
-                    let l = Level { x: a, k: b };
+                assert_eq!(m.level_of(k0), 0);
+                for l in 1..=MAX_LEVEL {
                     let direct = m.key_at(&x, &k, id, l);
-                    assert_eq!(m.lift(k0, l), direct, "n {n} level {l:?}");
+                    assert_eq!(m.lift(k0, l), direct, "n {n} level {l}");
                     assert_eq!(m.level_of(direct), l);
-                    let mid = Level { x: a / 2, k: b / 2 };
-                    assert_eq!(m.lift(m.key_at(&x, &k, id, mid), l), direct);
+                    if l >= 2 {
+                        assert_eq!(m.lift(m.key_at(&x, &k, id, l - 2), l), direct);
+                    }
                 }
             }
         }

@@ -311,12 +311,12 @@ fn drive(
             let pass = annihilation.run(setup, &mut st.store, st.step, comm);
             let rep = pass.report;
             let worse = if pass.threshold.is_nan() {
-                pass.coarsest_level.x + pass.coarsest_level.k > forced_level
+                pass.coarsest_level > forced_level
             } else {
                 pass.threshold > forced_threshold
             };
             if pass.forced && worse {
-                forced_level = forced_level.max(pass.coarsest_level.x + pass.coarsest_level.k);
+                forced_level = forced_level.max(pass.coarsest_level);
                 forced_threshold = forced_threshold.max(pass.threshold);
                 if root {
                     progress(Progress::Warning(forced_warning(
@@ -353,12 +353,8 @@ fn drive(
                 for (d, v) in [
                     (names::ANNIHILATION_LEVEL, pass.mean_level),
                     (
-                        names::ANNIHILATION_LEVEL_X,
-                        f64::from(pass.coarsest_level.x),
-                    ),
-                    (
-                        names::ANNIHILATION_LEVEL_K,
-                        f64::from(pass.coarsest_level.k),
+                        names::ANNIHILATION_COARSEST_LEVEL,
+                        f64::from(pass.coarsest_level),
                     ),
                     (names::ANNIHILATION_THRESHOLD, pass.threshold),
                     (names::ANNIHILATION_CELL_X, cx),
@@ -494,7 +490,7 @@ fn forced_warning(setup: &Setup, annihilation: &Annihilation, pass: &Pass, t: f6
     let how = if pass.threshold.is_nan() {
         format!(
             "used cells {}× coarser than the job's {:.3} nm × {:.4} 1/nm",
-            1u32 << pass.coarsest_level.x,
+            1u32 << pass.coarsest_level,
             setup.cell_x,
             setup.cell_k
         )
