@@ -2,5 +2,6 @@
 //! against the exact reference.
 
 pub mod accuracy;
+pub mod refcache;
 pub mod scaling;
 pub mod validate;
