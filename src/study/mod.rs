@@ -4,4 +4,5 @@
 pub mod accuracy;
 pub mod refcache;
 pub mod scaling;
+pub mod transmission;
 pub mod validate;
