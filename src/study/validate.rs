@@ -724,36 +724,40 @@ fn stationary_section(s: &mut String, outcomes: &[JobOutcome]) {
     }
     let _ = writeln!(
         s,
-        "\nStationary transmission (one-body jobs; `src/reference/stationary.rs`): T(E) = \
-         transmitted over incident probability current of the stationary state with a wave \
-         incident from the left (textbook definition, e.g. Griffiths, Introduction to \
-         Quantum Mechanics, ch. 2; cited from memory), from a transfer solution of the \
-         stationary Schrödinger equation across the job's potential (midpoint cells of \
-         {} nm and half that, extrapolated), averaged over the initial packet's |φ̃(k)|² for \
-         k > 0 (k < 0 moves away and transmits nothing; its weight bounds the effect). \
-         Compared at the last output time when the norm still undecided (inside the \
-         potential's range or not yet arrived) is at most {:.0e}. The reference agrees when \
-         |reference − stationary| ≤ bound = undecided norm + initial overlap + k < 0 weight \
-         + stationary error + reference Δt error (4/3 of the change at half the step) + \
-         reference grid error (change on twice the points). The Monte Carlo check \
-         (`{STATIONARY}`) is a scalar check like the others: t = (MC − stationary)/s.e.\n",
+        "\nStationary transmission (one-body jobs; `src/reference/stationary.rs`, \
+         docs/method.md §5): T(E) = transmitted over incident probability current of the \
+         stationary state with a wave incident from the left (textbook definition, e.g. \
+         Griffiths, Introduction to Quantum Mechanics, ch. 2; cited from memory), from a \
+         transfer solution of the stationary Schrödinger equation across the job's potential \
+         (midpoint cells of {} nm and half that, extrapolated). \"plane-wave average\" is \
+         ∫_(k>0) |φ̃(k)|² T dk over the initial packet's momentum distribution; \"stationary\" \
+         projects the initial packet on the scattering states incident from both sides and \
+         sums the outgoing waves on the right, exact also when the packet's tail reaches \
+         into the potential at t = 0 (near a resonance the two differ). Compared at the last \
+         output time when the norm still undecided (inside the potential's range or not yet \
+         arrived) is at most {:.0e}. The reference agrees when |reference − stationary| ≤ \
+         bound = undecided norm + (1 − completeness of the projection) + stationary error + \
+         reference Δt error (4/3 of the change at half the step) + reference grid error \
+         (change on twice the points). The Monte Carlo check (`{STATIONARY}`) is a scalar \
+         check like the others: t = (MC − stationary)/s.e.\n",
         transmission::SCAN_STEP,
         transmission::PENDING_LIMIT
     );
     let _ = writeln!(
         s,
-        "| job | t (fs) | stationary T | reference | reference − stationary | bound | agrees | Monte Carlo | t |"
+        "| job | t (fs) | plane-wave average | stationary | reference | reference − stationary | bound | agrees | Monte Carlo | t |"
     );
-    let _ = writeln!(s, "|---|---|---|---|---|---|---|---|---|");
+    let _ = writeln!(s, "|---|---|---|---|---|---|---|---|---|---|");
     for a in &rows {
         match &a.outcome {
             Outcome::Compared(c) => {
                 let t = (c.mc - c.stationary) / c.mc_se;
                 let _ = writeln!(
                     s,
-                    "| {} | {} | {:.5} ± {:.1e} | {:.5} | {:+.2e} | {:.2e} | {} | {:.5} ± {:.5} | {:+.2} |",
+                    "| {} | {} | {:.5} | {:.5} ± {:.1e} | {:.5} | {:+.2e} | {:.2e} | {} | {:.5} ± {:.5} | {:+.2} |",
                     a.job,
                     c.time,
+                    c.free,
                     c.stationary,
                     c.stationary_error,
                     c.reference,
@@ -770,27 +774,30 @@ fn stationary_section(s: &mut String, outcomes: &[JobOutcome]) {
                 );
             }
             Outcome::Skipped(why) => {
-                let _ = writeln!(s, "| {} | – | not compared: {why} | | | | | | |", a.job);
+                let _ = writeln!(s, "| {} | – | not compared: {why} | | | | | | | |", a.job);
             }
         }
     }
     let _ = writeln!(
         s,
-        "\nParts of the bound (compared jobs): undecided norm, initial overlap, k < 0 weight, \
-         stationary error, reference Δt and grid errors:\n"
+        "\nParts of the bound (compared jobs): undecided norm, 1 − completeness, stationary \
+         error, reference Δt and grid errors; beside them the initial overlap with the \
+         potential's range and the k < 0 weight (not in the bound: the projection accounts \
+         for both):\n"
     );
     for a in &rows {
         if let Outcome::Compared(c) = &a.outcome {
             let _ = writeln!(
                 s,
-                "- {}: {:.1e}, {:.1e}, {:.1e}, {:.1e}, {:.1e}, {:.1e}",
+                "- {}: {:.1e}, {:.1e}, {:.1e}, {:.1e}, {:.1e}; overlap {:.1e}, k < 0 {:.1e}",
                 a.job,
                 c.pending,
-                c.initial_overlap,
-                c.backward_weight,
+                (1.0 - c.completeness).abs(),
                 c.stationary_error,
                 c.reference_dt_error,
-                c.reference_dx_error
+                c.reference_dx_error,
+                c.initial_overlap,
+                c.backward_weight
             );
         }
     }
@@ -799,17 +806,19 @@ fn stationary_section(s: &mut String, outcomes: &[JobOutcome]) {
 /// validation-stationary.csv: one row per one-body job.
 fn stationary_csv(outcomes: &[JobOutcome]) -> String {
     let mut s = String::from(
-        "job,compared,time_fs,stationary,stationary_error,backward_weight,initial_overlap,pending,reference,reference_dt_error,reference_dx_error,bound,reference_agrees,mc,mc_se,mc_t,note\n",
+        "job,compared,time_fs,stationary,stationary_error,completeness,plane_wave_average,backward_weight,initial_overlap,pending,reference,reference_dt_error,reference_dx_error,bound,reference_agrees,mc,mc_se,mc_t,note\n",
     );
     for a in outcomes.iter().filter_map(|o| o.stationary.as_ref()) {
         let _ = match &a.outcome {
             Outcome::Compared(c) => writeln!(
                 s,
-                "{},true,{},{:.8},{:.2e},{:.2e},{:.2e},{:.2e},{:.8},{:.2e},{:.2e},{:.2e},{},{:.6},{:.6},{:.3},",
+                "{},true,{},{:.8},{:.2e},{:.8},{:.8},{:.2e},{:.2e},{:.2e},{:.8},{:.2e},{:.2e},{:.2e},{},{:.6},{:.6},{:.3},",
                 a.job,
                 c.time,
                 c.stationary,
                 c.stationary_error,
+                c.completeness,
+                c.free,
                 c.backward_weight,
                 c.initial_overlap,
                 c.pending,
@@ -824,7 +833,7 @@ fn stationary_csv(outcomes: &[JobOutcome]) -> String {
             ),
             Outcome::Skipped(why) => writeln!(
                 s,
-                "{},false,,,,,,,,,,,,,,,\"{}\"",
+                "{},false,,,,,,,,,,,,,,,,,\"{}\"",
                 a.job,
                 why.replace('"', "'")
             ),
