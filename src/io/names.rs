@@ -26,6 +26,12 @@ pub const CHECKPOINT_TYPE: &str = "signfold-checkpoint";
 pub const OBSERVABLES_FILE: &str = "observables.h5";
 pub const REFERENCE_FILE: &str = "reference.h5";
 pub const JOB_COPY_FILE: &str = "job.toml";
+/// The cache of exact references of the validation jobs (docs/formats.md): a
+/// subdirectory of the jobs' directory holding `<hash>.h5` (a reference result file) and
+/// `<hash>.key` (the physics key text the hash was taken of).
+pub const REFERENCE_CACHE_DIR: &str = "reference-cache";
+pub const REFERENCE_CACHE_DATA_EXT: &str = "h5";
+pub const REFERENCE_CACHE_KEY_EXT: &str = "key";
 /// Held by the run or resume working in the directory (holder's host, pid, start time).
 pub const LOCK_FILE: &str = "signfold.lock";
 /// Probe written and removed to test that a directory is writable.

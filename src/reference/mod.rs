@@ -11,6 +11,7 @@ mod lines;
 pub mod mesh;
 mod observe;
 mod state;
+pub mod stationary;
 
 use crate::config::job::LoadedJob;
 use crate::io::names;

@@ -2,5 +2,7 @@
 //! against the exact reference.
 
 pub mod accuracy;
+pub mod refcache;
 pub mod scaling;
+pub mod transmission;
 pub mod validate;

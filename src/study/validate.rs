@@ -7,6 +7,13 @@
 //! x ≤ x′) |Z| ≤ 3.5 for the mean p-value score. Precision floors are reported beside:
 //! transmitted-norm s.e., s.e. of ∫n₂(x, x) dx, and the expected density noise as a
 //! relative L1 distance.
+//!
+//! One-body scattering jobs are also compared with the packet average of the stationary
+//! transmission coefficient ([`crate::study::transmission`]): the Monte Carlo's transmitted
+//! norm at the end (a scalar check like the others) and the reference's (agreement within
+//! the bounds that check derives; a test of the reference itself). Exact references come
+//! from the cache in `<jobs>/reference-cache` when its key matches
+//! ([`crate::study::refcache`]).
 
 use crate::analysis::stats::{self, BinnedTest, ScalarTest};
 use crate::config::job::LoadedJob;
@@ -14,10 +21,11 @@ use crate::engine::comm::Solo;
 use crate::io::names::{self, Dataset};
 use crate::io::results::ResultFile;
 use crate::physics::numerics::Setup;
-use crate::reference;
 use crate::runner::driver::{self, RunOptions};
 use crate::runner::progress::Progress;
 use crate::study::accuracy::{common_frames, expected_noise_l1};
+use crate::study::refcache::{self, Source};
+use crate::study::transmission::{self, Assessment, Outcome};
 use crate::viz::chart::{Area, FONT_NAME, LABEL_PX, TICK_PX, TITLE_PX, ensure_font, render};
 use crate::viz::colormap;
 use anyhow::{Context, Result, bail};
@@ -25,6 +33,9 @@ use plotters::prelude::*;
 use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
+
+/// Name of the check of the Monte Carlo transmitted norm against the stationary T.
+pub const STATIONARY: &str = "stationary_transmission";
 
 /// Largest |t| or |Z| accepted.
 pub const ACCEPT: f64 = 3.5;
@@ -59,6 +70,10 @@ pub struct Options {
     /// length, and test whether the answer moved beyond the noise (no exact answer needed).
     #[arg(long)]
     pub systematic: bool,
+    /// Solve every exact reference afresh (and rewrite its cache entry) instead of using a
+    /// cached one whose physics key matches.
+    #[arg(long)]
+    pub recompute_references: bool,
 }
 
 /// One test of one observable at one output time.
@@ -343,6 +358,8 @@ pub struct JobOutcome {
     pub warnings: Vec<String>,
     /// Variants against the base run: (label, checks).
     pub systematic: Vec<(String, Vec<Check>)>,
+    /// The stationary transmission check (one-body jobs only).
+    pub stationary: Option<Assessment>,
 }
 
 /// Rerun a job at 2× and 4× the budget and at 1.5× the coherence length and compare each
@@ -396,8 +413,14 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
             .to_string();
         let loaded = crate::physics::defaults::load(&file, &[])?;
         let started = Instant::now();
-        let exact = reference::solve(&loaded).with_context(|| format!("{name}: reference"))?;
+        let cache = opts.jobs.join(names::REFERENCE_CACHE_DIR);
+        let (exact, source) = refcache::reference(&loaded, Some(&cache), opts.recompute_references)
+            .with_context(|| format!("{name}: reference"))?;
         let ref_s = started.elapsed().as_secs_f64();
+        let ref_how = match source {
+            Source::Cache => "cached",
+            Source::Computed => "computed",
+        };
         let started = Instant::now();
         let (mc, warnings) = run_monte_carlo(&loaded, &runs.join(&name))?;
         for w in &warnings {
@@ -407,12 +430,55 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
         let n = loaded.job.particles.count;
         let groups = loaded.job.numerics.groups as usize;
         let resolution = sample_resolution(&mc);
-        let checks = compare(&name, n, groups, resolution, &mc, &exact);
+        let mut checks = compare(&name, n, groups, resolution, &mc, &exact);
+        let last_ref = exact.times().len().checked_sub(1);
+        let mc_final = common_frames(&mc, &exact)
+            .into_iter()
+            .find(|&(_, j, _)| Some(j) == last_ref)
+            .and_then(|(i, _, _)| transmitted_at(&mc, i));
+        let stationary = transmission::assess(&name, &loaded, &exact, mc_final)
+            .with_context(|| format!("{name}: stationary transmission"))?;
+        if let Some(Assessment {
+            outcome: Outcome::Compared(c),
+            ..
+        }) = &stationary
+        {
+            checks.push(Check {
+                job: name.clone(),
+                time: c.time,
+                observable: STATIONARY,
+                kind: Kind::Scalar {
+                    estimate: c.mc,
+                    se: c.mc_se,
+                    exact: c.stationary,
+                    test: stats::scalar_test(c.mc, c.mc_se, c.stationary, groups, 3.0 * resolution),
+                },
+            });
+            say(format!(
+                "{name}: stationary T = {:.5} ± {:.1e}; reference {:.5} (difference {:+.2e}, \
+                 bound {:.2e}); Monte Carlo {:.5} ± {:.5}",
+                c.stationary,
+                c.stationary_error,
+                c.reference,
+                c.reference_difference(),
+                c.tolerance,
+                c.mc,
+                c.mc_se
+            ));
+        } else if let Some(Assessment {
+            outcome: Outcome::Skipped(why),
+            ..
+        }) = &stationary
+        {
+            say(format!(
+                "{name}: stationary transmission not compared: {why}"
+            ));
+        }
         let mut fl = floors(n, &mc, &exact);
         fl.wall_s = wall;
         let failed = checks.iter().filter(|c| !c.passed()).count();
         say(format!(
-            "{name}: {} checks, {failed} outside |stat| ≤ {ACCEPT}; reference {ref_s:.0} s, Monte Carlo {wall:.0} s",
+            "{name}: {} checks, {failed} outside |stat| ≤ {ACCEPT}; reference {ref_how} ({ref_s:.0} s), Monte Carlo {wall:.0} s",
             checks.len()
         ));
         let systematic = if opts.systematic {
@@ -428,24 +494,32 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
             floors: fl,
             warnings,
             systematic,
+            stationary,
         });
     }
     let suffix = if opts.quick { "-quick" } else { "" };
     let md = opts.out.join(format!("VALIDATION{suffix}.md"));
     let csv = opts.out.join(format!("validation{suffix}.csv"));
     let png = opts.out.join(format!("validation{suffix}.png"));
+    let csv_st = opts.out.join(format!("validation-stationary{suffix}.csv"));
     std::fs::write(&md, markdown(&outcomes, opts.quick))
         .with_context(|| format!("cannot write {}", md.display()))?;
     std::fs::write(&csv, csv_text(&outcomes))
         .with_context(|| format!("cannot write {}", csv.display()))?;
+    std::fs::write(&csv_st, stationary_csv(&outcomes))
+        .with_context(|| format!("cannot write {}", csv_st.display()))?;
     figure(&png, &outcomes)?;
     let ok = outcomes.iter().all(|o| {
         o.checks.iter().all(Check::passed)
+            && o.stationary.as_ref().is_none_or(|a| match &a.outcome {
+                Outcome::Compared(c) => c.reference_agrees(),
+                Outcome::Skipped(_) => true,
+            })
             && o.systematic
                 .iter()
                 .all(|(_, c)| c.iter().all(Check::passed))
     });
-    Ok((vec![md, csv, png], ok))
+    Ok((vec![md, csv, csv_st, png], ok))
 }
 
 /// Norm carried by one sample: 1/S₀, S₀ the net sign count at t = 0.
@@ -531,7 +605,8 @@ fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
         s,
         "Made by `signfold validate{}`: each job of `jobs/validation/` run by the Monte Carlo \
          with the numerics in its file and its fixed seed, compared with `signfold reference` \
-         at every output time. Scalars pass with |t| ≤ {ACCEPT} (t = difference / standard \
+         (taken from `jobs/validation/reference-cache/` when the hash of the job's physics \
+         matches; docs/formats.md) at every output time. Scalars pass with |t| ≤ {ACCEPT} (t = difference / standard \
          error); binned data pass with |Z| ≤ {ACCEPT}, Z being the normal score of the mean \
          per-bin p-value under Student's t with B − 1 degrees of freedom (two-sided: Z > 0 \
          means error bars too large; see `src/analysis/stats.rs` and docs/method.md §4).\n",
@@ -593,6 +668,7 @@ fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
             }
         }
     }
+    stationary_section(&mut s, outcomes);
     let _ = writeln!(s, "\nWarnings of the runs:\n");
     let mut warned = false;
     for o in outcomes {
@@ -633,6 +709,135 @@ fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
     }
     if !any {
         let _ = writeln!(s, "none.");
+    }
+    s
+}
+
+/// The stationary-transmission section of VALIDATION.md.
+fn stationary_section(s: &mut String, outcomes: &[JobOutcome]) {
+    let rows: Vec<&Assessment> = outcomes
+        .iter()
+        .filter_map(|o| o.stationary.as_ref())
+        .collect();
+    if rows.is_empty() {
+        return;
+    }
+    let _ = writeln!(
+        s,
+        "\nStationary transmission (one-body jobs; `src/reference/stationary.rs`, \
+         docs/method.md §5): T(E) = transmitted over incident probability current of the \
+         stationary state with a wave incident from the left (textbook definition, e.g. \
+         Griffiths, Introduction to Quantum Mechanics, ch. 2; cited from memory), from a \
+         transfer solution of the stationary Schrödinger equation across the job's potential \
+         (midpoint cells of {} nm and half that, extrapolated). \"plane-wave average\" is \
+         ∫_(k>0) |φ̃(k)|² T dk over the initial packet's momentum distribution; \"stationary\" \
+         projects the initial packet on the scattering states incident from both sides and \
+         sums the outgoing waves on the right, exact also when the packet's tail reaches \
+         into the potential at t = 0 (near a resonance the two differ). Compared at the last \
+         output time when the norm still undecided (inside the potential's range or not yet \
+         arrived) is at most {:.0e}. The reference agrees when |reference − stationary| ≤ \
+         bound = undecided norm + (1 − completeness of the projection) + stationary error + \
+         reference Δt error (4/3 of the change at half the step) + reference grid error \
+         (change on twice the points). The Monte Carlo check (`{STATIONARY}`) is a scalar \
+         check like the others: t = (MC − stationary)/s.e.\n",
+        transmission::SCAN_STEP,
+        transmission::PENDING_LIMIT
+    );
+    let _ = writeln!(
+        s,
+        "| job | t (fs) | plane-wave average | stationary | reference | reference − stationary | bound | agrees | Monte Carlo | t |"
+    );
+    let _ = writeln!(s, "|---|---|---|---|---|---|---|---|---|---|");
+    for a in &rows {
+        match &a.outcome {
+            Outcome::Compared(c) => {
+                let t = (c.mc - c.stationary) / c.mc_se;
+                let _ = writeln!(
+                    s,
+                    "| {} | {} | {:.5} | {:.5} ± {:.1e} | {:.5} | {:+.2e} | {:.2e} | {} | {:.5} ± {:.5} | {:+.2} |",
+                    a.job,
+                    c.time,
+                    c.free,
+                    c.stationary,
+                    c.stationary_error,
+                    c.reference,
+                    c.reference_difference(),
+                    c.tolerance,
+                    if c.reference_agrees() {
+                        "yes"
+                    } else {
+                        "**no**"
+                    },
+                    c.mc,
+                    c.mc_se,
+                    t
+                );
+            }
+            Outcome::Skipped(why) => {
+                let _ = writeln!(s, "| {} | – | not compared: {why} | | | | | | | |", a.job);
+            }
+        }
+    }
+    let _ = writeln!(
+        s,
+        "\nParts of the bound (compared jobs): undecided norm, 1 − completeness, stationary \
+         error, reference Δt and grid errors; beside them the initial overlap with the \
+         potential's range and the k < 0 weight (not in the bound: the projection accounts \
+         for both):\n"
+    );
+    for a in &rows {
+        if let Outcome::Compared(c) = &a.outcome {
+            let _ = writeln!(
+                s,
+                "- {}: {:.1e}, {:.1e}, {:.1e}, {:.1e}, {:.1e}; overlap {:.1e}, k < 0 {:.1e}",
+                a.job,
+                c.pending,
+                (1.0 - c.completeness).abs(),
+                c.stationary_error,
+                c.reference_dt_error,
+                c.reference_dx_error,
+                c.initial_overlap,
+                c.backward_weight
+            );
+        }
+    }
+}
+
+/// validation-stationary.csv: one row per one-body job.
+fn stationary_csv(outcomes: &[JobOutcome]) -> String {
+    let mut s = String::from(
+        "job,compared,time_fs,stationary,stationary_error,completeness,plane_wave_average,backward_weight,initial_overlap,pending,reference,reference_dt_error,reference_dx_error,bound,reference_agrees,mc,mc_se,mc_t,note\n",
+    );
+    for a in outcomes.iter().filter_map(|o| o.stationary.as_ref()) {
+        let _ = match &a.outcome {
+            Outcome::Compared(c) => writeln!(
+                s,
+                "{},true,{},{:.8},{:.2e},{:.8},{:.8},{:.2e},{:.2e},{:.2e},{:.8},{:.2e},{:.2e},{:.2e},{},{:.6},{:.6},{:.3},",
+                a.job,
+                c.time,
+                c.stationary,
+                c.stationary_error,
+                c.completeness,
+                c.free,
+                c.backward_weight,
+                c.initial_overlap,
+                c.pending,
+                c.reference,
+                c.reference_dt_error,
+                c.reference_dx_error,
+                c.tolerance,
+                c.reference_agrees(),
+                c.mc,
+                c.mc_se,
+                (c.mc - c.stationary) / c.mc_se
+            ),
+            Outcome::Skipped(why) => writeln!(
+                s,
+                "{},false,,,,,,,,,,,,,,,,,\"{}\"",
+                a.job,
+                why.replace('"', "'")
+            ),
+        };
     }
     s
 }
