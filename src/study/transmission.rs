@@ -134,10 +134,7 @@ pub fn assess(
         }))
     };
     if job.domain.boundary != Boundary::Absorbing {
-        return skip(format!(
-            "not a scattering job ({:?} boundary)",
-            job.domain.boundary
-        ));
+        return skip("not a scattering job (the boundary is not \"absorbing\")".to_string());
     }
     let d = &job.domain;
     let mass = units::mass_from_electron_masses(job.particles.mass);
