@@ -58,7 +58,31 @@ pub fn plan(setup: &mut Setup, world: &World, runtime: f64) -> Result<Plan> {
     let f = pilot::forecast(setup, &p, &proj, ranks, threads, runtime);
     let (available, source) = memory::available_per_rank(setup, on_node);
     let available = -world.max_f64(-available);
-    let text = forecast_text(setup, &p, &proj, &f, ranks, threads, available, &source)?;
+    let mut text = forecast_text(setup, &p, &proj, &f, ranks, threads, available, &source)?;
+    if let Some(limit) = pilot::budget_limit(setup, &p, &proj) {
+        let hi = pilot::forecast(setup, &p, &limit, ranks, threads, runtime);
+        writeln!(
+            text,
+            "upper estimate: {:.1} MiB per rank if the step that passes the budget grows at the bound rate \
+             (×{:.4} = exp(2Γ_max·Δt), peak {:.3e} live particles)",
+            hi.total_mib(),
+            (2.0 * setup.gamma_max * setup.dt).exp(),
+            limit.peak
+        )?;
+        if hi.total() > available && f.total() <= available {
+            writeln!(
+                text,
+                "warning: the upper estimate does not fit in the {:.1} MiB available per rank ({source}); the run \
+                 stops with the numbers if its memory would pass that",
+                available / MIB
+            )?;
+        }
+    }
+    writeln!(
+        text,
+        "checkpoint ≈ {:.1} MiB at the trigger count",
+        setup.checkpoint_bytes() / MIB
+    )?;
     let verdict = if f.total() > available {
         let parts: Vec<String> = f
             .terms
@@ -161,11 +185,6 @@ fn forecast_text(
         "total",
         f.total_mib(),
         available / MIB
-    )?;
-    writeln!(
-        w,
-        "checkpoint ≈ {:.1} MiB at the trigger count",
-        setup.checkpoint_bytes() / MIB
     )?;
     Ok(s)
 }

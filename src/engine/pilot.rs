@@ -286,6 +286,24 @@ pub fn project(setup: &Setup, p: &Pilot) -> Projection {
     proj
 }
 
+/// The largest count the budget allows when the count reaches it: one step at the bound
+/// rate past the budget, budget × exp(2Γ_max·Δt) (the expected growth of one step cannot
+/// exceed it). None when the projection is not bounded by the budget.
+pub fn budget_limit(setup: &Setup, p: &Pilot, proj: &Projection) -> Option<Projection> {
+    if !proj.budget_bound {
+        return None;
+    }
+    let budget = setup.budget as f64;
+    let g = (2.0 * setup.gamma_max * setup.dt).exp();
+    let peak = budget * g;
+    Some(Projection {
+        peak,
+        after: (peak * p.survival_at(peak)).min(0.5 * budget),
+        births: peak - peak / g,
+        ..*proj
+    })
+}
+
 /// The memory forecast of one rank at the projected peak.
 pub fn forecast(
     setup: &Setup,
