@@ -69,7 +69,12 @@ pub fn packed_bytes_per_particle(n: usize) -> f64 {
 /// | `keys: Vec<u128>` (each particle's leaf key) | particle | 16 |
 /// | `fine` keys and slots, `plus`, `minus`, `leaf_key` | finest occupied cell | 16 + 16 + 16 (+ slots) |
 /// | `owned` keys and slots, `owned_plus`, `owned_minus` | finest cell owned | 16 + 16 (+ slots) |
-/// | `tree` (tables, nodes and leaf marks per level) | node | not counted yet |
+/// | `tree.nodes: Vec<Node>` (u64, u64, u32, u32, u128, u32: 64 with alignment) | node of any level | 64 |
+/// | `tree.leaf: Vec<[u8; RUNGS]>` | node of any level | `RUNGS` |
+/// | `tree.tables` keys and slots | node above the finest level | 16 (+ slots) |
+///
+/// The tree has one node per occupied cell of every level of the merge path; the pilot
+/// counts them on its own particles (see [`TREE_NODE_BYTES`]).
 ///
 /// When annihilation changes, update this table and [`AnnihilatorBytes`]; the pilot itself
 /// calls the run's own step, so the counts it measures follow the code without edits.
@@ -93,6 +98,10 @@ pub struct AnnihilatorBytes {
     pub per_particle_adaptive: f64,
     pub per_cell_adaptive: f64,
 }
+
+/// Bytes of one merge-tree node and its leaf marks (`engine::resolution`: `Node` of two
+/// u64, two u32, a u128 and a u32, padded to 64; one u8 per rung).
+pub const TREE_NODE_BYTES: f64 = 64.0 + crate::engine::resolution::RUNGS as f64;
 
 /// The per-particle and per-cell byte counts of today's annihilation buffers (see the
 /// table of [`AnnihilatorBytes`]).
@@ -184,7 +193,7 @@ pub struct Term {
 }
 
 /// What the memory model needs to know about the run's particles, per rank.
-#[derive(Clone, Copy, Debug)]
+#[derive(Clone, Debug)]
 pub struct Load {
     /// Peak particles of one rank (right after the advance that precedes an annihilation).
     pub particles: f64,
@@ -198,6 +207,9 @@ pub struct Load {
     pub survival: f64,
     /// Whether the run annihilates at all (no buffers otherwise).
     pub annihilates: bool,
+    /// Adaptive resolution: occupied cells of one rank on every level of the merge path
+    /// (level 0 the finest), at the peak; empty with fixed resolution.
+    pub tree: Vec<f64>,
     pub ranks: usize,
     pub threads: usize,
     /// Resident bytes of the process before the job's structures exist (code, libraries,
@@ -251,16 +263,29 @@ impl Forecast {
         let cand = p * (1.0 + load.survival.clamp(0.0, 1.0)) / 2.0;
         let slots = hash_slots(cells);
         if load.annihilates && adaptive {
-            let slots = 2.0 * hash_slots(cells);
+            let finest = load.tree.first().copied().unwrap_or(cells);
+            let slots = 2.0 * hash_slots(finest);
+            let nodes: f64 = load.tree.iter().sum();
+            let upper: f64 = load.tree.iter().skip(1).sum();
+            let tree_slots: f64 = load.tree.iter().skip(1).map(|&c| hash_slots(c)).sum();
             terms.push(Term {
                 name: "resolution",
                 what: format!(
-                    "{p:.3e} particles × {} B + {cells:.3e} finest cells × {} B + {slots:.3e} hash slots × {} B (merge tree not counted)",
-                    a.per_particle_adaptive, a.per_cell_adaptive, a.per_slot
+                    "{p:.3e} particles × {} B + {finest:.3e} finest cells × {} B + {slots:.3e} hash slots × {} B; \
+                     merge tree: {nodes:.3e} nodes on {} levels × {TREE_NODE_BYTES} B + {upper:.3e} keys × 16 B + \
+                     {tree_slots:.3e} slots × {} B",
+                    a.per_particle_adaptive,
+                    a.per_cell_adaptive,
+                    a.per_slot,
+                    load.tree.len(),
+                    a.per_slot
                 ),
                 bytes: p * a.per_particle_adaptive
-                    + cells * a.per_cell_adaptive
-                    + slots * a.per_slot,
+                    + finest * a.per_cell_adaptive
+                    + slots * a.per_slot
+                    + nodes * TREE_NODE_BYTES
+                    + upper * 16.0
+                    + tree_slots * a.per_slot,
             });
         }
         if load.annihilates {

@@ -6,12 +6,15 @@
 //! projection of the count over the whole job (scaled by the sample ratio, capped by the
 //! budget) and the memory per rank at its peak ([`crate::engine::memory`]).
 
+use crate::config::job::Resolution;
 use crate::engine::budget::Annihilation;
 use crate::engine::comm::Comm;
 use crate::engine::memory::{Forecast, Load};
+use crate::engine::resolution::merge_path;
 use crate::engine::start::initial_state;
 use crate::engine::step::sync_step;
 use crate::engine::timers::Timers;
+use crate::physics::cells::CellMesh;
 use crate::physics::numerics::Setup;
 use crate::physics::particles::Store;
 use anyhow::Result;
@@ -48,6 +51,9 @@ pub struct Pilot {
     /// Occupied cells at the job's cells against particles, per rank, for thinned copies
     /// of the pilot's particles (every 4th, every 2nd, all): (particles, cells).
     pub occupancy: [(f64, f64); 3],
+    /// Adaptive resolution: occupied cells of every level of the merge path (the merge
+    /// tree's nodes), for the same copies, per rank: [level][copy] = (particles, cells).
+    pub tree: Vec<[(f64, f64); 3]>,
     /// Wall seconds of the pilot.
     pub seconds: f64,
 }
@@ -63,6 +69,28 @@ impl Pilot {
             .map(|(n, c)| (n.ln(), c.ln()))
             .collect();
         slope(&pts).map_or(1.0, |a| a.clamp(0.0, 1.0))
+    }
+
+    /// Nodes of every level of the merge tree on one rank holding `particles` particles,
+    /// each extrapolated by its own power law (as [`Pilot::cells_at`]).
+    pub fn tree_at(&self, particles: f64) -> Vec<f64> {
+        self.tree
+            .iter()
+            .map(|pts| {
+                let logs: Vec<(f64, f64)> = pts
+                    .iter()
+                    .filter(|(n, c)| *n > 0.0 && *c > 0.0)
+                    .map(|(n, c)| (n.ln(), c.ln()))
+                    .collect();
+                let a = slope(&logs).map_or(1.0, |a| a.clamp(0.0, 1.0));
+                let (n, c) = pts[2];
+                if n <= 0.0 || c <= 0.0 {
+                    particles
+                } else {
+                    (c * (particles / n).powf(a)).min(particles)
+                }
+            })
+            .collect()
     }
 
     /// Fraction surviving one annihilation at the job's cells when `count` particles (all
@@ -176,6 +204,22 @@ fn measure(setup: &mut Setup, comm: &dyn Comm) -> Result<Pilot> {
     setup.budget = u64::MAX;
     let mut occupancy = [(0.0, 0.0); 3];
     let mut cancellation = [(0.0, 0.0); 3];
+    // The merge path of a pass at this time (as `budget::Annihilation::run` builds it).
+    let adaptive = setup.resolution == Resolution::Adaptive;
+    let mesh = CellMesh::new(setup)?;
+    let remaining = setup.steps.saturating_sub(st.step) as f64 * setup.dt;
+    let outputs = setup.output_steps.len().max(2) as f64 - 1.0;
+    let path = merge_path(
+        &mesh,
+        setup.mass,
+        remaining,
+        setup.steps as f64 * setup.dt / outputs,
+    );
+    let mut tree = if adaptive {
+        vec![[(0.0, 0.0); 3]; path.len()]
+    } else {
+        Vec::new()
+    };
     let mut survival = 1.0;
     for (slot, every) in [4usize, 2, 1].into_iter().enumerate() {
         let mut copy = Store::new(st.store.n);
@@ -187,13 +231,22 @@ fn measure(setup: &mut Setup, comm: &dyn Comm) -> Result<Pilot> {
                 st.store.sign[p],
             );
         }
+        let ranks = comm.size() as f64;
+        for (l, level) in path.iter().enumerate().filter(|_| adaptive) {
+            let mut seen = std::collections::HashSet::with_capacity(copy.len());
+            for p in 0..copy.len() {
+                seen.insert(mesh.key_at(copy.xs(p), copy.ks(p), copy.id[p], *level));
+            }
+            let mut v = [copy.len() as i64, seen.len() as i64];
+            comm.sum_i64(&mut v);
+            tree[l][slot] = (v[0] as f64 / ranks, v[1] as f64 / ranks);
+        }
         let mut local = [copy.len() as i64, 0];
         let rep = Annihilation::new(setup)?
             .run(setup, &mut copy, st.step, comm)
             .report;
         local[1] = rep.local_cells as i64;
         comm.sum_i64(&mut local);
-        let ranks = comm.size() as f64;
         occupancy[slot] = (local[0] as f64 / ranks, local[1] as f64 / ranks);
         cancellation[slot] = (rep.before as f64, rep.after as f64);
         if every == 1 && rep.before > 0 {
@@ -214,6 +267,7 @@ fn measure(setup: &mut Setup, comm: &dyn Comm) -> Result<Pilot> {
         cancellation,
         annihilations: st.annihilations,
         occupancy,
+        tree,
         seconds: 0.0,
     })
 }
@@ -322,6 +376,7 @@ pub fn forecast(
         cells: p.cells_at(per_rank),
         survival: p.survival_at(proj.peak),
         annihilates: proj.annihilations > 0,
+        tree: p.tree_at(per_rank),
         ranks,
         threads,
         runtime,
