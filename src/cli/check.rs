@@ -2,12 +2,14 @@
 //! without running it.
 
 use super::collective;
-use anyhow::{Result, bail};
+use anyhow::Result;
 use signfold::engine::comm::Comm;
+use signfold::engine::memory::{self, Forecast};
 use signfold::engine::mpi::World;
+use signfold::engine::pilot::{self, Pilot, Projection};
 use signfold::engine::start::sign_ratio;
 use signfold::physics::initial;
-use signfold::physics::numerics::{Setup, machine_memory};
+use signfold::physics::numerics::Setup;
 use signfold::viz::chart::short;
 use std::fmt::Write;
 use std::path::Path;
@@ -15,12 +17,15 @@ use std::process::ExitCode;
 
 /// `signfold check JOB`: validate on every rank, print the report once.
 pub fn command(job: &Path, set: &[String], world: &World) -> Result<ExitCode> {
+    let runtime = memory::process_status_bytes("VmRSS").unwrap_or(0.0);
     let loaded = collective(signfold::physics::defaults::load(job, set))?;
-    let setup = collective(Setup::new(&loaded))?;
+    let mut setup = collective(Setup::new(&loaded))?;
     // ∫|W|/∫W from the run's own initial draws, summed over the ranks as `run` does.
     let draws = setup.target.min(RATIO_DRAWS);
     let ratio = collective(sign_ratio(&setup, draws, world))?;
-    let text = collective(report(&setup, world.size(), ratio, draws))?;
+    let mut text = collective(report(&setup, ratio, draws))?;
+    let plan = collective(plan(&mut setup, world, runtime))?;
+    text += &plan.text;
     if world.is_root() {
         print!("{text}");
         // The numerics derived from the physics, with why (also stored in every result).
@@ -31,7 +36,162 @@ pub fn command(job: &Path, set: &[String], world: &World) -> Result<ExitCode> {
             );
         }
     }
+    collective(plan.verdict)?;
     Ok(ExitCode::SUCCESS)
+}
+
+/// The pilot forecast of a job on this launch: the printed text and whether it fits.
+pub struct Plan {
+    pub text: String,
+    pub verdict: Result<()>,
+    /// Memory one rank may use, bytes (the same on every rank).
+    pub available: f64,
+}
+
+/// Run the pilot on every rank and forecast the memory per rank at the job's peak count
+/// (docs/method.md §3, "Memory forecast"); the verdict fails, with the numbers, when the
+/// forecast does not fit in the memory available per rank. `runtime`: this process's
+/// resident bytes before the job's structures were built.
+pub fn plan(setup: &mut Setup, world: &World, runtime: f64) -> Result<Plan> {
+    let ranks = world.size();
+    let on_node = world.ranks_on_node();
+    let threads = rayon::current_num_threads();
+    // The same numbers on every rank, so every rank reaches the same verdict.
+    let runtime = world.max_f64(runtime);
+    let p = pilot::pilot(setup, world)?;
+    let proj = pilot::project(setup, &p);
+    let f = pilot::forecast(setup, &p, &proj, ranks, threads, runtime);
+    let (available, source) = memory::available_per_rank(setup, on_node);
+    let available = -world.max_f64(-available);
+    let mut text = forecast_text(setup, &p, &proj, &f, ranks, threads, available, &source)?;
+    if let Some(limit) = pilot::budget_limit(setup, &p, &proj) {
+        let hi = pilot::forecast(setup, &p, &limit, ranks, threads, runtime);
+        writeln!(
+            text,
+            "upper estimate: {:.1} MiB per rank if the step that passes the budget grows at the bound rate \
+             (×{:.4} = exp(2Γ_max·Δt), peak {:.3e} live particles)",
+            hi.total_mib(),
+            (2.0 * setup.gamma_max * setup.dt).exp(),
+            limit.peak
+        )?;
+        if hi.total() > available && f.total() <= available {
+            writeln!(
+                text,
+                "warning: the upper estimate does not fit in the {:.1} MiB available per rank ({source}); the run \
+                 stops with the numbers if its memory would pass that",
+                available / MIB
+            )?;
+        }
+    }
+    writeln!(
+        text,
+        "checkpoint ≈ {:.1} MiB at the trigger count",
+        setup.checkpoint_bytes() / MIB
+    )?;
+    let verdict = if f.total() > available {
+        let parts: Vec<String> = f
+            .terms
+            .iter()
+            .map(|t| format!("{} {:.1} MiB", t.name, t.bytes / MIB))
+            .collect();
+        Err(anyhow::anyhow!(
+            "the job does not fit: the forecast peak of {:.3e} live particles on all ranks needs {:.1} MiB per rank \
+             ({}) but {:.1} MiB are available per rank ({source}): lower annihilation.budget (the peak particle count \
+             follows it) or numerics.particles, raise the memory cap, or spread the job over more ranks (on more nodes \
+             when the node's memory is the limit)",
+            proj.peak,
+            f.total_mib(),
+            parts.join(", "),
+            available / MIB,
+        ))
+    } else {
+        Ok(())
+    };
+    Ok(Plan {
+        text,
+        verdict,
+        available,
+    })
+}
+
+const MIB: f64 = (1u64 << 20) as f64;
+
+#[allow(clippy::too_many_arguments)]
+fn forecast_text(
+    setup: &Setup,
+    p: &Pilot,
+    proj: &Projection,
+    f: &Forecast,
+    ranks: usize,
+    threads: usize,
+    available: f64,
+    source: &str,
+) -> Result<String> {
+    let mut s = String::new();
+    let w = &mut s;
+    writeln!(
+        w,
+        "pilot: {} particles (1/{:.1} of the job) for {} sync step(s) in {:.2} s, nothing written: count ×{:.4} per step \
+         (largest ×{:.4}), {} annihilation(s); one annihilation at the job's cells keeps {:.1} % of its {} particles \
+         (extrapolated: {:.1} % at the peak count); occupied cells per rank ∝ particles^{:.2} ({:.0} cells for {:.0} particles)",
+        p.initial,
+        p.ratio,
+        p.steps,
+        p.seconds,
+        p.growth,
+        p.growth_max,
+        p.annihilations,
+        100.0 * p.survival,
+        p.last,
+        100.0 * p.survival_at(proj.peak),
+        p.occupancy_exponent(),
+        p.occupancy[2].1,
+        p.occupancy[2].0,
+    )?;
+    if proj.budget_bound {
+        writeln!(
+            w,
+            "forecast: peak {:.3e} live particles on all ranks: the count can reach annihilation.budget = {} within the job \
+             (at the bound rate 2Γ_max from t ≈ {} fs), and one step of the pilot's largest growth (×{:.4}) passes it \
+             before the trigger fires; {:.3e} left after that annihilation",
+            proj.peak,
+            setup.budget,
+            proj.peak_step as f64 * setup.dt,
+            p.growth_max.max(1.0),
+            proj.after
+        )?;
+    } else {
+        writeln!(
+            w,
+            "forecast: peak {:.3e} live particles on all ranks at t ≈ {} fs, {} annihilation(s) over the job at the pilot's \
+             rates; the count cannot reach annihilation.budget = {} within the job even at the bound rate 2Γ_max",
+            proj.peak,
+            proj.peak_step as f64 * setup.dt,
+            proj.annihilations,
+            setup.budget
+        )?;
+    }
+    writeln!(
+        w,
+        "memory per rank at the peak ({ranks} rank(s), {threads} thread(s) each):"
+    )?;
+    for t in &f.terms {
+        writeln!(
+            w,
+            "  {:<16} {:>10.1} MiB  {}",
+            t.name,
+            t.bytes / MIB,
+            t.what
+        )?;
+    }
+    writeln!(
+        w,
+        "  {:<16} {:>10.1} MiB  of {:.1} MiB available per rank ({source})",
+        "total",
+        f.total_mib(),
+        available / MIB
+    )?;
+    Ok(s)
 }
 
 /// Draws used for the growth-rate forecast (the first of the run's own draws).
@@ -86,8 +246,8 @@ fn forecast(setup: &Setup) -> Result<f64> {
     Ok(rate / abs)
 }
 
-/// The report printed by `check`; fails when the job cannot run on this machine.
-fn report(setup: &Setup, ranks: usize, ratio: f64, draws: u64) -> Result<String> {
+/// The part of `check`'s report that needs no pilot.
+fn report(setup: &Setup, ratio: f64, draws: u64) -> Result<String> {
     let mut s = String::new();
     let mean_rate = forecast(setup)?;
     let w = &mut s;
@@ -193,27 +353,8 @@ fn report(setup: &Setup, ranks: usize, ratio: f64, draws: u64) -> Result<String>
         FORECAST_DRAWS
     )?;
     writeln!(w, "initial particles: {}", count_note(setup.target))?;
-    let per_rank = setup.memory_per_rank(ranks);
-    writeln!(
-        w,
-        "memory: {} bytes per particle; estimated peak {:.1} MiB per rank on {ranks} rank(s); cap {:.0} MiB per rank; checkpoint ≈ {:.1} MiB",
-        setup.bytes_per_particle(),
-        per_rank / (1u64 << 20) as f64,
-        setup.memory_limit / (1u64 << 20) as f64,
-        setup.checkpoint_bytes() / (1u64 << 20) as f64
-    )?;
     for warning in warnings(setup) {
         writeln!(w, "warning: {warning}")?;
-    }
-    let mem = machine_memory();
-    if per_rank * ranks as f64 > mem {
-        bail!(
-            "{s}the job needs an estimated {:.1} GiB in all ({:.1} GiB per rank × {ranks}) but this machine has {:.1} GiB: \
-             lower numerics.particles or annihilation.trigger, or run on more nodes",
-            per_rank * ranks as f64 / (1u64 << 30) as f64,
-            per_rank / (1u64 << 30) as f64,
-            mem / (1u64 << 30) as f64
-        );
     }
     Ok(s)
 }

@@ -34,8 +34,13 @@ pub fn run(args: RunArgs, world: &World) -> anyhow::Result<ExitCode> {
     collective(check_until(args.until))?;
     install_signals()?;
     let walltime = collective(args.walltime.as_deref().map(parse_walltime).transpose())?;
+    let runtime = signfold::engine::memory::process_status_bytes("VmRSS").unwrap_or(0.0);
     let loaded = collective(signfold::physics::defaults::load(&args.job, &args.set))?;
-    let setup = collective(Setup::new(&loaded))?;
+    let mut setup = collective(Setup::new(&loaded))?;
+    // The memory check of `check`, before anything is written (docs/method.md §3).
+    let plan = collective(super::check::plan(&mut setup, world, runtime))?;
+    collective(plan.verdict)?;
+    setup.memory_limit = plan.available;
     let opts = RunOptions {
         out: args.out,
         force: args.force,

@@ -135,7 +135,9 @@ pub struct Numerics {
     pub groups: u32,
     #[serde(default = "one_u64")]
     pub seed: u64,
-    /// Memory cap per rank for the particle store, MiB (default: half the machine's memory).
+    /// Memory cap per rank, MiB: `check` and `run` refuse a job whose forecast peak does not
+    /// fit, and a run stops before it would pass it (default: the node's available memory
+    /// shared by the ranks on the node; for `resume`, half the machine's memory).
     pub memory_limit_mib: Option<f64>,
 }
 

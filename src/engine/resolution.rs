@@ -56,7 +56,7 @@ pub const LADDER: [(u32, f64); 12] = [
     (MAX_LEVEL, 13.0),
     (MAX_LEVEL, f64::INFINITY),
 ];
-const RUNGS: usize = LADDER.len();
+pub const RUNGS: usize = LADDER.len();
 const LEVELS: usize = MAX_LEVEL as usize + 1;
 /// Marks "not a leaf on this rung" in per-node leaf levels.
 const NONE: u8 = u8::MAX;

@@ -62,7 +62,9 @@ pub struct Setup {
     pub trigger: f64,
     /// Live samples allowed on all ranks together.
     pub budget: u64,
-    /// Memory cap per rank for particles, bytes.
+    /// Memory cap per rank, bytes: `numerics.memory_limit_mib`, else half this machine's
+    /// memory; `run` replaces the default by the node's available memory shared by its ranks
+    /// (the forecast in `engine::memory` and the run's own check compare with it).
     pub memory_limit: f64,
 }
 
@@ -316,13 +318,6 @@ impl Setup {
     /// Bytes per particle in the store.
     pub fn bytes_per_particle(&self) -> f64 {
         Store::bytes_per_particle(self.n) as f64
-    }
-
-    /// Estimated peak bytes per rank: the store at the annihilation trigger, with room for
-    /// the children of one step and the growth slack of the vectors (factor 2 in all).
-    pub fn memory_per_rank(&self, ranks: usize) -> f64 {
-        let peak = self.trigger * self.target as f64 * (2.0 * self.gamma_max * self.dt).exp();
-        2.0 * peak / ranks as f64 * self.bytes_per_particle()
     }
 
     /// Size of one checkpoint at the annihilation trigger, bytes.

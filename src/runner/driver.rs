@@ -1,19 +1,19 @@
 //! The run: initial particles, then (advance → annihilate → observe → write)* to the end.
 
 use crate::config::job::LoadedJob;
-use crate::engine::annihilate;
 use crate::engine::budget::{Annihilation, Pass};
 use crate::engine::comm::{Comm, agree};
+use crate::engine::memory;
 use crate::engine::observe;
 use crate::engine::start::initial_state;
 use crate::engine::state::State;
+use crate::engine::step::{Annihilated, sync_step};
 use crate::engine::stop::stop_requested;
 use crate::engine::timers::{Phase, Timers};
 use crate::io::checkpoint;
 use crate::io::names;
 use crate::io::results::ResultFile;
 use crate::physics::estimators::Counts;
-use crate::physics::flight;
 use crate::physics::numerics::Setup;
 use crate::runner::outdir::{DirLock, lock_dir, prepare_out};
 use crate::runner::progress::{Progress, Sink, StopReason};
@@ -277,38 +277,19 @@ fn drive(
     let mut events = 0u64;
     let mut bytes_sent: Vec<f64> = Vec::new();
     let mut cells: Vec<f64> = Vec::new();
-    let g = setup.groups as usize;
+    // Occupied annihilation cells per particle of this rank at the latest annihilation
+    // (one per particle, the most there can be, before the first).
+    let mut cells_per_particle = 1.0;
     while st.step < stop_step {
         let step_started = Instant::now();
-        let t0 = Instant::now();
-        let tally = flight::advance_in_place(setup, &mut st.store, st.step);
-        st.step += 1;
-        timers.add(Phase::Advance, t0);
-        let t0 = Instant::now();
-        let mut t = [
-            tally.absorbed_left.clone(),
-            tally.absorbed_right.clone(),
-            tally.lost_momentum.clone(),
-            vec![tally.events as i64, st.store.len() as i64],
-        ]
-        .concat();
-        comm.sum_i64(&mut t);
-        for i in 0..g {
-            st.gone.left[i] += t[i];
-            st.gone.right[i] += t[g + i];
-            st.gone.momentum[i] += t[2 * g + i];
-        }
-        events += t[3 * g] as u64;
-        let mut count = t[3 * g + 1] as u64;
-        timers.add(Phase::Bookkeeping, t0);
-        // Annihilate when the global count has grown by the trigger factor since the latest
-        // annihilation (or since t = 0, whichever count is larger), or passes the budget:
-        // docs/method.md §3.
-        let reference = st.initial_count.max(st.count_after_annihilation);
-        let threshold = ((setup.trigger * reference as f64) as u64).min(setup.budget);
-        if count > threshold {
-            let t0 = Instant::now();
-            let pass = annihilation.run(setup, &mut st.store, st.step, comm);
+        let step = sync_step(setup, &mut annihilation, &mut st, comm, &mut timers);
+        events += step.events;
+        let count = step.count;
+        if let Some(Annihilated {
+            pass,
+            moved_words: moved,
+        }) = &step.annihilation
+        {
             let rep = pass.report;
             let worse = if pass.threshold.is_nan() {
                 pass.coarsest_level > forced_level
@@ -322,30 +303,12 @@ fn drive(
                     progress(Progress::Warning(forced_warning(
                         setup,
                         &annihilation,
-                        &pass,
+                        pass,
                         st.step as f64 * setup.dt,
                     )));
                 }
             }
-            timers.add_secs(Phase::Binning, rep.binning_s);
-            timers.add_secs(Phase::Reduction, rep.reduction_s);
-            // The rest of the call (the global before/after counts, which also absorb the
-            // ranks' imbalance in selection) is bookkeeping.
-            timers.add_secs(
-                Phase::Bookkeeping,
-                (t0.elapsed().as_secs_f64() - rep.binning_s - rep.reduction_s - rep.selection_s)
-                    .max(0.0),
-            );
-            let t0 = Instant::now();
-            let moved = annihilate::rebalance(&mut st.store, comm);
-            timers.add_secs(
-                Phase::Regeneration,
-                rep.selection_s + t0.elapsed().as_secs_f64(),
-            );
-            st.annihilations += 1;
-            st.count_after_annihilation = rep.after;
-            count = rep.after;
-            bytes_sent.push(8.0 * (rep.words_sent + moved) as f64);
+            bytes_sent.push(8.0 * (rep.words_sent + *moved) as f64);
             cells.push(rep.local_cells as f64);
             if root {
                 let rec = &mut out.records;
@@ -374,19 +337,36 @@ fn drive(
             }
         }
         let t0 = Instant::now();
-        let local_bytes = st.store.len() as f64 * setup.bytes_per_particle();
-        if comm.any(local_bytes * 2.0 > setup.memory_limit) {
+        // Memory cap (docs/method.md §3): what this rank holds now (resident) and what the
+        // next step's growth, at this step's rate, would add.
+        if let Some(a) = &step.annihilation {
+            cells_per_particle =
+                a.pass.report.local_cells as f64 / step.local_advanced.max(1) as f64;
+        }
+        let growth = step.local_advanced as f64 / step.local_start.max(1) as f64;
+        let len = st.store.len() as f64;
+        let per_particle = memory::bytes_per_live_particle(
+            setup,
+            cells_per_particle,
+            rayon::current_num_threads(),
+            comm.size(),
+        );
+        let resident = memory::process_status_bytes("VmRSS").unwrap_or(len * per_particle);
+        let need = resident + len * (growth.max(1.0) - 1.0) * per_particle;
+        if comm.any(need > setup.memory_limit) {
             let mut n = [st.store.len() as i64];
             comm.sum_i64(&mut n);
             bail!(
-                "the particle count ({} on all ranks, {} here) would exceed the memory cap of {:.0} MiB per rank \
-                 (numerics.memory_limit_mib; {:.0} particles fit with 2× headroom) at t = {} fs: the sign problem \
-                 outgrew annihilation; use finer annihilation cells, a lower annihilation.trigger, more ranks, or \
+                "the particle count ({} on all ranks, {} here, ×{growth:.3} in the last step) would take this rank to \
+                 {:.1} MiB ({:.1} MiB resident now + {per_particle:.0} B per new particle), past the memory cap of \
+                 {:.1} MiB per rank (numerics.memory_limit_mib, or the node's available memory shared by its ranks) \
+                 at t = {} fs: the sign problem outgrew annihilation; lower annihilation.budget, use more ranks, or \
                  fewer particles",
                 n[0],
                 st.store.len(),
+                need / (1u64 << 20) as f64,
+                resident / (1u64 << 20) as f64,
                 setup.memory_limit / (1u64 << 20) as f64,
-                setup.memory_limit / setup.bytes_per_particle() / 2.0,
                 st.step as f64 * setup.dt
             );
         }

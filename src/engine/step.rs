@@ -1,0 +1,120 @@
+//! One synchronisation step of a run (docs/method.md §2.4, §3): advance every particle,
+//! sum the global counts, and annihilate within the budget when the trigger says so, then
+//! rebalance. The run's driver and the `check` pilot both call [`sync_step`], so the pilot
+//! forecasts exactly what a run does.
+
+use crate::engine::annihilate;
+use crate::engine::budget::{Annihilation, Pass};
+use crate::engine::comm::Comm;
+use crate::engine::state::State;
+use crate::engine::timers::{Phase, Timers};
+use crate::physics::flight;
+use crate::physics::numerics::Setup;
+use std::time::Instant;
+
+/// What one step did, in global numbers.
+#[derive(Clone, Debug)]
+pub struct StepOutcome {
+    /// Kernel events of the step on all ranks.
+    pub events: u64,
+    /// Particles on all ranks right after the advance (before any annihilation).
+    pub advanced: u64,
+    /// This rank's particles at the start of the step and right after the advance.
+    pub local_start: usize,
+    pub local_advanced: usize,
+    /// Particles on all ranks at the end of the step.
+    pub count: u64,
+    /// The annihilation of this step, if the trigger fired.
+    pub annihilation: Option<Annihilated>,
+}
+
+/// An annihilation within the budget and the rebalancing after it.
+#[derive(Clone, Debug)]
+pub struct Annihilated {
+    pub pass: Pass,
+    /// 64-bit words this rank sent while rebalancing.
+    pub moved_words: u64,
+}
+
+/// Whether a global count triggers annihilation: it has grown by `annihilation.trigger`
+/// since t = 0 or since the latest annihilation (whichever count is larger), or it passes
+/// the budget (docs/method.md §3). Decided from global integers only.
+pub fn triggers(setup: &Setup, st: &State, count: u64) -> bool {
+    let reference = st.initial_count.max(st.count_after_annihilation);
+    let threshold = ((setup.trigger * reference as f64) as u64).min(setup.budget);
+    count > threshold
+}
+
+/// Advance `st` by one synchronisation step and annihilate when triggered. The departed
+/// tallies, the step number and the annihilation bookkeeping of `st` are updated; the
+/// phase times go to `timers`.
+pub fn sync_step(
+    setup: &Setup,
+    annihilation: &mut Annihilation,
+    st: &mut State,
+    comm: &dyn Comm,
+    timers: &mut Timers,
+) -> StepOutcome {
+    let g = setup.groups as usize;
+    let local_start = st.store.len();
+    let t0 = Instant::now();
+    let tally = flight::advance_in_place(setup, &mut st.store, st.step);
+    st.step += 1;
+    timers.add(Phase::Advance, t0);
+    let t0 = Instant::now();
+    let mut t = [
+        tally.absorbed_left.clone(),
+        tally.absorbed_right.clone(),
+        tally.lost_momentum.clone(),
+        vec![tally.events as i64, st.store.len() as i64],
+    ]
+    .concat();
+    comm.sum_i64(&mut t);
+    for i in 0..g {
+        st.gone.left[i] += t[i];
+        st.gone.right[i] += t[g + i];
+        st.gone.momentum[i] += t[2 * g + i];
+    }
+    let events = t[3 * g] as u64;
+    let advanced = t[3 * g + 1] as u64;
+    let local_advanced = st.store.len();
+    timers.add(Phase::Bookkeeping, t0);
+    if !triggers(setup, st, advanced) {
+        return StepOutcome {
+            events,
+            advanced,
+            local_start,
+            local_advanced,
+            count: advanced,
+            annihilation: None,
+        };
+    }
+    let t0 = Instant::now();
+    let pass = annihilation.run(setup, &mut st.store, st.step, comm);
+    let report = pass.report;
+    timers.add_secs(Phase::Binning, report.binning_s);
+    timers.add_secs(Phase::Reduction, report.reduction_s);
+    // The rest of the call (the global before/after counts, which also absorb the ranks'
+    // imbalance in selection) is bookkeeping.
+    timers.add_secs(
+        Phase::Bookkeeping,
+        (t0.elapsed().as_secs_f64() - report.binning_s - report.reduction_s - report.selection_s)
+            .max(0.0),
+    );
+    let t0 = Instant::now();
+    let moved_words = annihilate::rebalance(&mut st.store, comm);
+    timers.add_secs(
+        Phase::Regeneration,
+        report.selection_s + t0.elapsed().as_secs_f64(),
+    );
+    st.annihilations += 1;
+    st.count_after_annihilation = report.after;
+    StepOutcome {
+        events,
+        advanced,
+        local_start,
+        local_advanced,
+        count: report.after,
+        annihilation: Some(Annihilated { pass, moved_words }),
+    }
+}
