@@ -323,9 +323,17 @@ fn report(setup: &Setup, ratio: f64, draws: u64) -> Result<String> {
     let mesh = signfold::engine::annihilate::CellMesh::new(setup)?;
     writeln!(
         w,
-        "annihilation cells: {} nm × {} 1/nm (cells \"{}\"{}), mesh volume {:.3e} cells (stored sparsely), trigger at {}× the initial count or the count after the latest annihilation, if larger",
+        "annihilation cells: {} nm × {} 1/nm, resolution \"{}\" ({}) (cells \"{}\"{}), mesh volume {:.3e} cells (stored sparsely), trigger at {}× the initial count or the count after the latest annihilation, if larger",
         short(setup.cell_x),
         short(setup.cell_k),
+        word(&setup.resolution),
+        match setup.resolution {
+            signfold::config::job::Resolution::Adaptive => {
+                "the finest cells; merged up to 64× where the signs show no pattern and the budget needs it"
+            }
+            signfold::config::job::Resolution::Fixed =>
+                "everywhere; 2×…64× coarser only to keep within the budget",
+        },
         word(&setup.cells),
         if setup.merge_exchange {
             ", exchange-merged"
