@@ -10,6 +10,7 @@ mod accuracy;
 mod check;
 mod compare;
 mod inspect;
+mod merge;
 mod plot;
 mod reference;
 mod run;
@@ -116,6 +117,18 @@ pub enum Command {
     },
     /// Print what a result or checkpoint file holds.
     Inspect { file: PathBuf },
+    /// Combine runs of one job with different seeds (e.g. a cluster job array) into one
+    /// result whose error bars come from all error groups of all runs.
+    Merge {
+        /// Result files or run directories (at least two).
+        #[arg(required = true, num_args = 2..)]
+        runs: Vec<PathBuf>,
+        #[arg(long)]
+        out: PathBuf,
+        /// Write into a non-empty DIR (overwrites DIR/observables.h5).
+        #[arg(long)]
+        force: bool,
+    },
     /// Strong and weak scaling series: launch `run` at several rank counts, write CSV and PNG.
     Scaling(signfold::study::scaling::Options),
     /// Measure the Monte Carlo against the exact reference over particle counts and
@@ -284,6 +297,7 @@ fn serial(cmd: Command) -> anyhow::Result<ExitCode> {
             against,
         } => plot::command(&file, &out, times.as_deref(), against.as_deref()),
         Command::Inspect { file } => inspect::command(&file),
+        Command::Merge { runs, out, force } => merge::command(&runs, &out, force),
         Command::Reference {
             job,
             out,
