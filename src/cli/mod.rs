@@ -111,9 +111,15 @@ pub enum Command {
         /// Comma-separated output times (fs); default: first, middle, last.
         #[arg(long, value_delimiter = ',')]
         times: Option<Vec<f64>>,
-        /// A second file (e.g. reference.h5) drawn on the same axes.
+        /// A second file (e.g. reference.h5) drawn on the same axes: density, norm,
+        /// transmitted norm, energy.
         #[arg(long)]
         against: Option<PathBuf>,
+        /// Limit every map (Wigner function, pair density) to XMIN ≤ x ≤ XMAX (nm), e.g.
+        /// --window=-40:40; default: the whole domain for the Wigner function, the window
+        /// holding 99 % of ∫|n₂| for the pair density.
+        #[arg(long, value_name = "XMIN:XMAX", allow_hyphen_values = true)]
+        window: Option<String>,
     },
     /// Print what a result or checkpoint file holds.
     Inspect { file: PathBuf },
@@ -295,7 +301,14 @@ fn serial(cmd: Command) -> anyhow::Result<ExitCode> {
             out,
             times,
             against,
-        } => plot::command(&file, &out, times.as_deref(), against.as_deref()),
+            window,
+        } => plot::command(
+            &file,
+            &out,
+            times.as_deref(),
+            against.as_deref(),
+            window.as_deref(),
+        ),
         Command::Inspect { file } => inspect::command(&file),
         Command::Merge { runs, out, force } => merge::command(&runs, &out, force),
         Command::Reference {

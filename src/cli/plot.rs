@@ -8,8 +8,10 @@ pub fn command(
     out: &Path,
     times: Option<&[f64]>,
     against: Option<&Path>,
+    window: Option<&str>,
 ) -> anyhow::Result<ExitCode> {
-    for path in signfold::viz::plot::plot(file, out, times, against)? {
+    let window = window.map(signfold::viz::plot::Window::parse).transpose()?;
+    for path in signfold::viz::plot::plot(file, out, times, against, window)? {
         println!("{}", path.display());
     }
     Ok(ExitCode::SUCCESS)
