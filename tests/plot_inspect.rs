@@ -437,3 +437,49 @@ fn inspect_flags_a_result_file_with_a_short_series() {
         "{text}"
     );
 }
+
+#[test]
+fn window_limits_every_map_and_bad_windows_are_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let file = dir.path().join("observables.h5");
+    synthetic(&file, &[]);
+    let full = dir.path().join("full");
+    let zoom = dir.path().join("zoom");
+    for (out, extra) in [(&full, None), (&zoom, Some("--window=-8:8"))] {
+        let mut args = vec!["plot", s(&file), "--out", s(out), "--times", "5"];
+        args.extend(extra);
+        let run = signfold(&args);
+        assert!(
+            run.status.success(),
+            "stderr: {}",
+            String::from_utf8_lossy(&run.stderr)
+        );
+    }
+    // Both maps are written at their sizes and the window changes what they show.
+    for (name, size) in [
+        ("wigner_t5fs.png", WIGNER_SIZE),
+        ("pair_density_t5fs.png", PAIR_SIZE),
+    ] {
+        let (got, varied) = decode(&zoom.join(name));
+        assert_eq!(got, size, "{name}");
+        assert!(varied, "{name} is a single colour");
+        assert_ne!(
+            std::fs::read(full.join(name)).unwrap(),
+            std::fs::read(zoom.join(name)).unwrap(),
+            "{name}: --window changed nothing"
+        );
+    }
+    // The window syntax (also with a space and a leading minus), and windows holding no
+    // bin, are refused naming the option.
+    let out = dir.path().join("bad");
+    for (w, needle) in [
+        ("-8", "no `:`"),
+        ("8:-8", "XMIN must be below XMAX"),
+        ("100:200", "no x bin centre lies inside"),
+    ] {
+        assert_clean_failure(
+            &signfold(&["plot", s(&file), "--out", s(&out), "--window", w]),
+            &["--window", needle],
+        );
+    }
+}

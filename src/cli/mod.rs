@@ -10,6 +10,7 @@ mod accuracy;
 mod check;
 mod compare;
 mod inspect;
+mod merge;
 mod plot;
 mod reference;
 mod run;
@@ -128,9 +129,15 @@ pub enum Command {
         /// outputs is drawn at the nearest one, with a note; default: first, middle, last.
         #[arg(long, value_delimiter = ',')]
         times: Option<Vec<f64>>,
-        /// A second file (e.g. reference.h5) drawn on the same axes.
+        /// A second file (e.g. reference.h5) drawn on the same axes: density, norm,
+        /// transmitted norm, energy.
         #[arg(long, value_name = "B.h5")]
         against: Option<PathBuf>,
+        /// Limit every map (Wigner function, pair density) to XMIN ≤ x ≤ XMAX (nm), e.g.
+        /// --window=-40:40; default: the whole domain for the Wigner function, the window
+        /// holding 99 % of ∫|n₂| for the pair density.
+        #[arg(long, value_name = "XMIN:XMAX", allow_hyphen_values = true)]
+        window: Option<String>,
     },
     /// Print what a result or checkpoint file holds.
     Inspect {
@@ -139,6 +146,19 @@ pub enum Command {
         /// Print only the output times (fs), one per line.
         #[arg(long)]
         times: bool,
+    },
+    /// Combine runs of one job with different seeds (e.g. a cluster job array) into one
+    /// result whose error bars come from all error groups of all runs.
+    Merge {
+        /// Result files or run directories (at least two).
+        #[arg(required = true, num_args = 2..)]
+        runs: Vec<PathBuf>,
+        /// Directory for the merged result (DIR/observables.h5, DIR/job.toml).
+        #[arg(long, value_name = "DIR")]
+        out: PathBuf,
+        /// Write into a non-empty DIR (overwrites DIR/observables.h5).
+        #[arg(long)]
+        force: bool,
     },
     /// Strong and weak scaling series: launch `run` at several rank counts, write CSV and PNG.
     Scaling(signfold::study::scaling::Options),
@@ -306,8 +326,16 @@ fn serial(cmd: Command) -> anyhow::Result<ExitCode> {
             out,
             times,
             against,
-        } => plot::command(&file, &out, times.as_deref(), against.as_deref()),
+            window,
+        } => plot::command(
+            &file,
+            &out,
+            times.as_deref(),
+            against.as_deref(),
+            window.as_deref(),
+        ),
         Command::Inspect { file, times } => inspect::command(&file, times),
+        Command::Merge { runs, out, force } => merge::command(&runs, &out, force),
         Command::Reference {
             job,
             out,

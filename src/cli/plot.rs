@@ -8,8 +8,10 @@ pub fn command(
     out: &Path,
     times: Option<&[f64]>,
     against: Option<&Path>,
+    window: Option<&str>,
 ) -> anyhow::Result<ExitCode> {
-    let plotted = signfold::viz::plot::plot(file, out, times, against)?;
+    let window = window.map(signfold::viz::plot::Window::parse).transpose()?;
+    let plotted = signfold::viz::plot::plot(file, out, times, against, window)?;
     for note in &plotted.notes {
         eprintln!("signfold: note: {note}");
     }

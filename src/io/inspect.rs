@@ -308,7 +308,11 @@ fn is_series(path: &str) -> bool {
     let Some(name) = path.strip_prefix('/') else {
         return false;
     };
-    !name.contains('/') && name != "x" && name != "k" && !name.starts_with("annihilation_")
+    !name.contains('/')
+        && name != names::X.name
+        && name != names::K.name
+        && !crate::io::axes::is_root_axis_only(name)
+        && !name.starts_with(names::ANNIHILATION_PREFIX)
 }
 
 fn walk(g: &hdf5::Group, prefix: &str, out: &mut Vec<Entry>) -> hdf5::Result<()> {

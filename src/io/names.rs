@@ -49,6 +49,45 @@ pub const ATTR_UNITS: &str = "units";
 pub const TIME: Dataset = ds("time", "fs");
 pub const X: Dataset = ds("x", "nm");
 pub const K: Dataset = ds("k", "1/nm");
+/// The second position axis of `pair_density` (index [t][x][x′]): the same bin centres as
+/// `x`, stored again so that netCDF-aware tools see two distinct named axes.
+pub const X_PRIME: Dataset = ds("x_prime", "nm");
+
+/// The named axes (HDF5 dimension scales) of the frame of an observable, after the time
+/// axis: `Some` for the observables (and their `_error`) of docs/formats.md, `None` for a
+/// name this program does not know (the writer then matches the axis by its length).
+pub fn frame_axes(name: &str) -> Option<&'static [Dataset]> {
+    let base = name.strip_suffix(ERROR_SUFFIX).unwrap_or(name);
+    const XS: &[Dataset] = &[X];
+    const PAIR: &[Dataset] = &[X, X_PRIME];
+    const PHASE: &[Dataset] = &[X, K];
+    const KS: &[Dataset] = &[K];
+    Some(match base {
+        n if n == DENSITY.name || n == CURRENT_DENSITY.name => XS,
+        n if n == PAIR_DENSITY.name => PAIR,
+        n if n == WIGNER.name => PHASE,
+        n if n == MOMENTUM_DENSITY.name => KS,
+        n if SCALARS.iter().any(|d| d.name == n) => &[],
+        _ => return None,
+    })
+}
+
+/// Observables with one value per output time.
+const SCALARS: [Dataset; 13] = [
+    NORM,
+    ABSORBED_LEFT,
+    ABSORBED_RIGHT,
+    NORM_RIGHT,
+    LOST_NORM,
+    ENERGY,
+    MEAN_X,
+    MEAN_K,
+    MEAN_FORCE,
+    PARTICLES,
+    PARTICLES_POSITIVE,
+    PARTICLES_NEGATIVE,
+    TIME,
+];
 
 /// Observables (each Monte Carlo observable also has `<name>_error`, same units).
 pub const DENSITY: Dataset = ds("density", "1/nm");
@@ -110,6 +149,26 @@ pub const RUN_REFERENCE_DX: Dataset = ds("reference_dx", "nm");
 pub const RUN_REFERENCE_MAX_DT: Dataset = ds("reference_max_dt", "fs");
 pub const RUN_REFERENCE_PADDING: Dataset = ds("reference_padding", "nm");
 pub const RUN_WALL_TIME: Dataset = ds("wall_time", "s");
+/// Axes (dimension scales) of `/run`: the rank of a per-rank figure (values 0, 1, …), the
+/// entry a·ranks + r of a per-annihilation-and-rank figure, and the one entry of a single
+/// figure. Written by the result writer, skipped by the reader.
+pub const RUN_RANK: Dataset = ds("rank", "1");
+pub const RUN_PASS_RANK: Dataset = ds("pass_rank", "1");
+pub const RUN_SINGLE: Dataset = ds("single", "1");
+
+/// The named axis of the `/run` dataset `name` holding `len` values (`None`: a name this
+/// program does not know, with more than one value).
+pub fn run_axis(name: &str, len: usize) -> Option<Dataset> {
+    if name.starts_with(RUN_SECONDS_PREFIX) || name == RUN_WALL_SECONDS.name {
+        Some(RUN_RANK)
+    } else if name == RUN_BYTES_SENT.name || name == RUN_OCCUPIED_CELLS.name {
+        Some(RUN_PASS_RANK)
+    } else if len == 1 {
+        Some(RUN_SINGLE)
+    } else {
+        None
+    }
+}
 
 /// Checkpoint layout: attributes, groups and datasets.
 pub mod checkpoint {

@@ -10,6 +10,7 @@ use anyhow::{Context, Result, anyhow, bail};
 use std::collections::BTreeMap;
 use std::path::Path;
 
+pub use crate::io::attrs::{read_str_attr, write_str_attr};
 use crate::io::names::{self, Dataset};
 pub use crate::io::names::{FORMAT_VERSION, OBSERVABLES_TYPE, REFERENCE_TYPE};
 use crate::physics::estimators::{Estimate, Frame};
@@ -195,6 +196,7 @@ impl ResultFile {
                 write_1d(&g, name, units, v)?;
             }
         }
+        crate::io::axes::write_axes(&f, &self.x)?;
         f.flush()?;
         Ok(())
     }
@@ -248,7 +250,11 @@ impl ResultFile {
             .copied()
             .unwrap_or(0);
         for name in f.member_names()? {
-            if name == names::X.name || name == names::K.name || name == names::RUN_GROUP {
+            if name == names::X.name
+                || name == names::K.name
+                || name == names::RUN_GROUP
+                || crate::io::axes::is_root_axis_only(&name)
+            {
                 continue;
             }
             let ds = match f.dataset(&name) {
@@ -275,6 +281,9 @@ impl ResultFile {
         }
         if let Ok(g) = f.group(names::RUN_GROUP) {
             for name in g.member_names()? {
+                if crate::io::axes::is_run_axis_only(&name) {
+                    continue;
+                }
                 if let Ok(ds) = g.dataset(&name) {
                     let units = read_str_attr(&ds, names::ATTR_UNITS).unwrap_or_default();
                     out.run.insert(name, (units, ds.read_raw::<f64>()?));
@@ -297,23 +306,6 @@ fn write_1d(g: &hdf5::Group, name: &str, units: &str, v: &[f64]) -> Result<hdf5:
     }
     write_str_attr(&ds, names::ATTR_UNITS, units)?;
     Ok(ds)
-}
-
-/// Write a variable-length UTF-8 string attribute.
-pub fn write_str_attr(loc: &hdf5::Location, name: &str, value: &str) -> Result<()> {
-    let v: hdf5::types::VarLenUnicode = value
-        .parse()
-        .map_err(|e| anyhow!("attribute {name}: {e:?}"))?;
-    loc.new_attr::<hdf5::types::VarLenUnicode>()
-        .create(name)?
-        .write_scalar(&v)?;
-    Ok(())
-}
-
-/// Read a string attribute written by [`write_str_attr`].
-pub fn read_str_attr(loc: &hdf5::Location, name: &str) -> Result<String> {
-    let v: hdf5::types::VarLenUnicode = loc.attr(name)?.read_scalar()?;
-    Ok(v.as_str().to_string())
 }
 
 /// Check that `dir` takes a file: create a probe of a few KiB, sync it and remove it. Run

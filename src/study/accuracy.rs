@@ -442,10 +442,10 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<Vec<PathBu
     let fits = fits(&rows);
     let mut written = Vec::new();
     let csv = opts.out.join("accuracy.csv");
-    std::fs::write(&csv, rows_csv(&rows))?;
+    std::fs::write(&csv, rows_csv(&rows)?)?;
     written.push(csv);
     let fit_csv = opts.out.join("accuracy-fit.csv");
-    std::fs::write(&fit_csv, fits_csv(&fits))?;
+    std::fs::write(&fit_csv, fits_csv(&fits)?)?;
     written.push(fit_csv);
     let png = opts.out.join("accuracy.png");
     plot(&png, &rows, &fits)?;
@@ -519,62 +519,92 @@ fn fits(rows: &[Row]) -> Vec<Fit> {
     out
 }
 
-fn opt(v: Option<f64>) -> String {
-    v.map_or(String::new(), |v| format!("{v:.6}"))
+/// One row of `accuracy.csv` (docs/formats.md, "Accuracy study CSVs"); the column names
+/// are the field names (renamed where a column name is not a Rust identifier).
+#[derive(serde::Serialize)]
+struct RowRecord<'a> {
+    job: &'a str,
+    particles: u64,
+    coherence_length: f64,
+    bins: usize,
+    bin_width_nm: f64,
+    #[serde(rename = "density_L1")]
+    density_l1: f64,
+    #[serde(rename = "pair_density_L1")]
+    pair_density_l1: Option<f64>,
+    transmitted_norm_mc: Option<f64>,
+    transmitted_norm_ref: Option<f64>,
+    #[serde(rename = "expected_noise_L1")]
+    expected_noise_l1: f64,
+    wall_s: f64,
+    /// Free text (`--set` overrides): quoted by the CSV writer when it holds a comma or a
+    /// quote.
+    settings: &'a str,
+    #[serde(rename = "density_L1_time_fs")]
+    density_l1_time_fs: f64,
+    #[serde(rename = "pair_expected_noise_L1")]
+    pair_expected_noise_l1: Option<f64>,
+    transmitted_norm_mc_error: Option<f64>,
+    peak_particles: f64,
 }
 
-fn rows_csv(rows: &[Row]) -> String {
-    let mut s = String::from(
-        "job,particles,coherence_length,bins,bin_width_nm,density_L1,pair_density_L1,\
-         transmitted_norm_mc,transmitted_norm_ref,expected_noise_L1,wall_s,\
-         settings,density_L1_time_fs,pair_expected_noise_L1,transmitted_norm_mc_error,peak_particles\n",
-    );
-    for r in rows {
-        let _ = writeln!(
-            s,
-            "{},{},{},{},{},{:.6},{},{},{},{:.6},{:.1},{},{},{},{},{}",
-            r.job,
-            r.particles,
-            r.coherence_length,
-            r.bins,
-            r.bin_width,
-            r.density.l1,
-            opt(r.pair.map(|p| p.l1)),
-            opt(r.transmitted_mc.map(|t| t.0)),
-            opt(r.transmitted_ref),
-            r.density.expected_noise,
-            r.wall_s,
-            r.extra,
-            r.density.time,
-            opt(r.pair.map(|p| p.expected_noise)),
-            opt(r.transmitted_mc.map(|t| t.1)),
-            r.peak_particles
-        );
-    }
-    s
+/// One row of `accuracy-fit.csv`.
+#[derive(serde::Serialize)]
+struct FitRecord<'a> {
+    job: &'a str,
+    coherence_length: f64,
+    settings: &'a str,
+    density_floor: Option<f64>,
+    density_c: Option<f64>,
+    pair_density_floor: Option<f64>,
+    pair_density_c: Option<f64>,
+    transmitted_bias: Option<f64>,
+    transmitted_bias_error: Option<f64>,
 }
 
-fn fits_csv(fits: &[Fit]) -> String {
-    let mut s = String::from(
-        "job,coherence_length,settings,density_floor,density_c,pair_density_floor,pair_density_c,\
-         transmitted_bias,transmitted_bias_error\n",
-    );
-    for f in fits {
-        let _ = writeln!(
-            s,
-            "{},{},{},{},{},{},{},{},{}",
-            f.job,
-            f.coherence_length,
-            f.extra,
-            opt(f.density.map(|d| d.0)),
-            opt(f.density.map(|d| d.1)),
-            opt(f.pair.map(|d| d.0)),
-            opt(f.pair.map(|d| d.1)),
-            opt(f.transmitted_bias.map(|d| d.0)),
-            opt(f.transmitted_bias.map(|d| d.1)),
-        );
+/// Serialise records as CSV text with a header line (None: an empty cell).
+fn to_csv<T: serde::Serialize>(records: impl IntoIterator<Item = T>) -> Result<String> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    for r in records {
+        w.serialize(r)?;
     }
-    s
+    let bytes = w.into_inner().map_err(|e| anyhow!("CSV: {e}"))?;
+    Ok(String::from_utf8(bytes)?)
+}
+
+fn rows_csv(rows: &[Row]) -> Result<String> {
+    to_csv(rows.iter().map(|r| RowRecord {
+        job: &r.job,
+        particles: r.particles,
+        coherence_length: r.coherence_length,
+        bins: r.bins,
+        bin_width_nm: r.bin_width,
+        density_l1: r.density.l1,
+        pair_density_l1: r.pair.map(|p| p.l1),
+        transmitted_norm_mc: r.transmitted_mc.map(|t| t.0),
+        transmitted_norm_ref: r.transmitted_ref,
+        expected_noise_l1: r.density.expected_noise,
+        wall_s: r.wall_s,
+        settings: &r.extra,
+        density_l1_time_fs: r.density.time,
+        pair_expected_noise_l1: r.pair.map(|p| p.expected_noise),
+        transmitted_norm_mc_error: r.transmitted_mc.map(|t| t.1),
+        peak_particles: r.peak_particles,
+    }))
+}
+
+fn fits_csv(fits: &[Fit]) -> Result<String> {
+    to_csv(fits.iter().map(|f| FitRecord {
+        job: &f.job,
+        coherence_length: f.coherence_length,
+        settings: &f.extra,
+        density_floor: f.density.map(|d| d.0),
+        density_c: f.density.map(|d| d.1),
+        pair_density_floor: f.pair.map(|d| d.0),
+        pair_density_c: f.pair.map(|d| d.1),
+        transmitted_bias: f.transmitted_bias.map(|d| d.0),
+        transmitted_bias_error: f.transmitted_bias.map(|d| d.1),
+    }))
 }
 
 fn fits_text(fits: &[Fit]) -> String {
@@ -749,6 +779,46 @@ fn panel(area: &Area, job: &str, rows: &[Row], fits: &[Fit]) -> Result<()> {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// The free-text `settings` column is quoted when it holds a comma or a quote, empty
+    /// cells stand for "not applicable", and every record has the header's columns.
+    #[test]
+    fn csv_quotes_free_text_and_leaves_missing_values_empty() {
+        let d = Distance {
+            l1: 0.02,
+            time: 35.0,
+            expected_noise: 0.015,
+        };
+        let settings = "annihilation.cells=\"relative\", numerics.rolloff=10";
+        let row = Row {
+            job: "fermion-pair".into(),
+            setting: 0,
+            label: String::new(),
+            extra: settings.into(),
+            particles: 1000,
+            coherence_length: 120.0,
+            bins: 100,
+            bin_width: 2.0,
+            density: d,
+            pair: None,
+            transmitted_mc: Some((0.5, 0.01)),
+            transmitted_ref: None,
+            peak_particles: 1500.0,
+            wall_s: 1.5,
+        };
+        let text = rows_csv(&[row]).unwrap();
+        let mut r = csv::Reader::from_reader(text.as_bytes());
+        let h = r.headers().unwrap().clone();
+        assert_eq!(h.len(), 16);
+        assert_eq!(&h[5], "density_L1");
+        let rec = r.records().next().unwrap().unwrap();
+        assert_eq!(rec.len(), 16);
+        let col = |name: &str| rec[h.iter().position(|c| c == name).unwrap()].to_string();
+        assert_eq!(col("settings"), settings);
+        assert_eq!(col("pair_density_L1"), "");
+        assert_eq!(col("transmitted_norm_mc").parse::<f64>().unwrap(), 0.5);
+        assert!(text.contains("\"annihilation.cells=\"\"relative\"\", numerics.rolloff=10\""));
+    }
 
     #[test]
     fn floor_fit_recovers_a_known_floor_and_noise_amplitude() {

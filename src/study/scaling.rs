@@ -126,44 +126,81 @@ pub struct Row {
     pub efficiency: f64,
 }
 
-/// CSV header (the column order of [`Row::csv`]).
-pub fn header() -> String {
-    let mut h = String::from(
-        "mode,ranks,threads,particles_initial,particles_final,annihilations,wall_s,launch_s",
+/// CSV header (the column order of [`Row::fields`]). The phase columns follow the
+/// engine's phase list, so rows are written as records of text fields through the csv
+/// crate (which quotes where needed) rather than through a fixed serde struct.
+pub fn header() -> Vec<String> {
+    let mut h: Vec<String> = [
+        "mode",
+        "ranks",
+        "threads",
+        "particles_initial",
+        "particles_final",
+        "annihilations",
+        "wall_s",
+        "launch_s",
+    ]
+    .iter()
+    .map(|s| s.to_string())
+    .collect();
+    h.extend(PHASES.iter().map(|p| format!("{p}_s")));
+    h.extend(
+        [
+            "imbalance_advance",
+            "bytes_sent_per_rank",
+            "occupied_cells_per_rank",
+            "efficiency",
+        ]
+        .iter()
+        .map(|s| s.to_string()),
     );
-    for p in PHASES {
-        let _ = write!(h, ",{p}_s");
-    }
-    h.push_str(",imbalance_advance,bytes_sent_per_rank,occupied_cells_per_rank,efficiency");
     h
 }
 
 impl Row {
-    pub fn csv(&self) -> String {
-        let mut s = format!(
-            "{},{},{},{},{},{},{:.6},{:.6}",
-            self.mode,
-            self.ranks,
-            self.threads,
-            self.particles_initial,
-            self.particles_final,
-            self.annihilations,
-            self.wall_s,
-            self.launch_s
-        );
-        for v in &self.phase_s {
-            let _ = write!(s, ",{v:.6}");
-        }
-        let _ = write!(
-            s,
-            ",{:.4},{:.1},{:.1},{:.4}",
-            self.imbalance_advance,
-            self.bytes_sent_per_rank,
-            self.occupied_cells_per_rank,
-            self.efficiency
-        );
-        s
+    /// The row's fields, in the order of [`header`].
+    pub fn fields(&self) -> Vec<String> {
+        let mut f = vec![
+            self.mode.clone(),
+            self.ranks.to_string(),
+            self.threads.to_string(),
+            self.particles_initial.to_string(),
+            self.particles_final.to_string(),
+            self.annihilations.to_string(),
+            format!("{:.6}", self.wall_s),
+            format!("{:.6}", self.launch_s),
+        ];
+        f.extend(self.phase_s.iter().map(|v| format!("{v:.6}")));
+        f.extend([
+            format!("{:.4}", self.imbalance_advance),
+            format!("{:.1}", self.bytes_sent_per_rank),
+            format!("{:.1}", self.occupied_cells_per_rank),
+            format!("{:.4}", self.efficiency),
+        ]);
+        f
     }
+}
+
+/// The CSV text of a series: the header, then one record per row.
+pub fn csv_text(rows: &[Row]) -> Result<String> {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    w.write_record(header())?;
+    for r in rows {
+        w.write_record(r.fields())?;
+    }
+    let bytes = w.into_inner().map_err(|e| anyhow::anyhow!("CSV: {e}"))?;
+    Ok(String::from_utf8(bytes)?)
+}
+
+/// The launcher command split like a POSIX shell would (quotes and backslashes), so that
+/// an option with spaces can be passed: `--launcher "mpirun --mca btl 'self,tcp'"`.
+pub fn launcher_words(launcher: &str) -> Result<Vec<String>> {
+    let words = shell_words::split(launcher)
+        .map_err(|e| anyhow::anyhow!("--launcher {launcher:?}: {e}"))?;
+    if words.is_empty() {
+        bail!("--launcher is empty");
+    }
+    Ok(words)
 }
 
 /// The `/run` figures of one result file as a row (efficiency 0 until the series is done).
@@ -312,12 +349,7 @@ pub fn drive(opts: &Options, say: &mut dyn FnMut(String)) -> Result<Vec<PathBuf>
         }
         set_efficiency(series.name(), &mut rows);
         let csv = opts.out.join(format!("{stem}-{}.csv", series.name()));
-        let mut text = header();
-        text.push('\n');
-        for r in &rows {
-            text.push_str(&r.csv());
-            text.push('\n');
-        }
+        let text = csv_text(&rows)?;
         std::fs::write(&csv, text).with_context(|| format!("cannot write {}", csv.display()))?;
         written.push(csv);
         let png = opts.out.join(format!("{stem}-{}.png", series.name()));
@@ -356,12 +388,10 @@ fn measure(
     threads: usize,
     particles: u64,
 ) -> Result<Row> {
-    let mut words = opts.launcher.split_whitespace();
-    let Some(program) = words.next() else {
-        bail!("--launcher is empty");
-    };
+    let words = launcher_words(&opts.launcher)?;
+    let program = &words[0];
     let mut cmd = Command::new(program);
-    cmd.args(words)
+    cmd.args(&words[1..])
         .args(["-n", &ranks.to_string()])
         .arg(exe)
         .arg("run")
@@ -444,7 +474,8 @@ pub fn machine_text(launcher: &str) -> String {
     let usable = std::thread::available_parallelism()
         .map(|n| n.get())
         .unwrap_or(0);
-    let launcher_program = launcher.split_whitespace().next().unwrap_or("mpirun");
+    let words = launcher_words(launcher).unwrap_or_default();
+    let launcher_program = words.first().map_or("mpirun", String::as_str);
     let (a, b, c) = hdf5::library_version();
     let mut s = String::new();
     let _ = writeln!(s, "signfold {}", env!("CARGO_PKG_VERSION"));
@@ -645,7 +676,39 @@ mod tests {
 
     #[test]
     fn header_and_row_have_the_same_columns() {
-        let n = header().split(',').count();
-        assert_eq!(row(1, 1, 1.0).csv().split(',').count(), n);
+        let text = csv_text(&[row(1, 1, 1.0), row(2, 1, 0.6)]).unwrap();
+        let mut r = csv::Reader::from_reader(text.as_bytes());
+        let n = r.headers().unwrap().len();
+        assert_eq!(n, header().len());
+        for rec in r.records() {
+            assert_eq!(rec.unwrap().len(), n);
+        }
+    }
+
+    #[test]
+    fn a_mode_with_a_comma_is_quoted() {
+        let mut odd = row(1, 1, 1.0);
+        odd.mode = "strong, \"re-run\"".into();
+        let text = csv_text(&[odd]).unwrap();
+        let mut r = csv::Reader::from_reader(text.as_bytes());
+        let rec = r.records().next().unwrap().unwrap();
+        assert_eq!(&rec[0], "strong, \"re-run\"");
+        assert_eq!(rec.len(), header().len());
+    }
+
+    #[test]
+    fn launcher_is_split_like_a_shell() {
+        assert_eq!(
+            launcher_words("mpirun --mca btl 'self,tcp' -x \"A B\"").unwrap(),
+            vec!["mpirun", "--mca", "btl", "self,tcp", "-x", "A B"]
+        );
+        assert!(
+            launcher_words("   ")
+                .unwrap_err()
+                .to_string()
+                .contains("empty")
+        );
+        let e = launcher_words("mpirun 'open").unwrap_err().to_string();
+        assert!(e.contains("--launcher"), "{e}");
     }
 }

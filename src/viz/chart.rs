@@ -66,8 +66,42 @@ pub struct Curve {
     pub dashed: bool,
 }
 
+/// How a value axis is laid out.
+#[derive(Clone, Copy, Debug, Default, PartialEq)]
+pub struct ValueAxis {
+    /// The axis spans at least this fraction of the largest magnitude shown, so that a
+    /// series constant to round-off is not blown up into many decimals (0: no floor).
+    pub min_relative_span: f64,
+    /// Whole numbers (counts): integer tick labels, the axis at least 10 units long.
+    pub integer: bool,
+}
+
 /// Draw curves on one axes under `area`'s title.
 pub fn draw_curves(area: &Area, x_desc: &str, y_desc: &str, curves: &[Curve]) -> Result<()> {
+    draw_curves_on(area, x_desc, y_desc, curves, ValueAxis::default())
+}
+
+/// The value range [lo, hi] widened, about its middle, to the span `axis` asks for.
+pub fn widen(lo: f64, hi: f64, axis: ValueAxis) -> (f64, f64) {
+    let mut span = axis.min_relative_span * lo.abs().max(hi.abs());
+    if axis.integer {
+        span = span.max(10.0);
+    }
+    if hi - lo >= span {
+        return (lo, hi);
+    }
+    let mid = 0.5 * (lo + hi);
+    (mid - 0.5 * span, mid + 0.5 * span)
+}
+
+/// Draw curves on one axes under `area`'s title, the value axis laid out as `axis` says.
+pub fn draw_curves_on(
+    area: &Area,
+    x_desc: &str,
+    y_desc: &str,
+    curves: &[Curve],
+    axis: ValueAxis,
+) -> Result<()> {
     let points = |c: &Curve| {
         c.xs.iter()
             .zip(&c.ys)
@@ -96,6 +130,7 @@ pub fn draw_curves(area: &Area, x_desc: &str, y_desc: &str, curves: &[Curve]) ->
         let m = if y0.is_finite() { y0 } else { 0.0 };
         (y0, y1) = (m - 1.0, m + 1.0);
     }
+    (y0, y1) = widen(y0, y1, axis);
     let pad = 0.05 * (y1 - y0);
     let mut chart = ChartBuilder::on(area)
         .margin(MARGIN)
@@ -112,7 +147,13 @@ pub fn draw_curves(area: &Area, x_desc: &str, y_desc: &str, curves: &[Curve]) ->
         .axis_desc_style((FONT_NAME, LABEL_PX))
         .label_style((FONT_NAME, TICK_PX))
         .x_label_formatter(&ticks(x0, x1))
-        .y_label_formatter(&ticks(y0 - pad, y1 + pad))
+        .y_label_formatter(&|v: &f64| {
+            if axis.integer {
+                format!("{v:.0}")
+            } else {
+                ticks(y0 - pad, y1 + pad)(v)
+            }
+        })
         .draw()?;
     for c in curves {
         if let Some(err) = &c.err {

@@ -1,0 +1,25 @@
+//! `signfold merge`: combine runs of one job with different seeds into one result.
+
+use std::path::{Path, PathBuf};
+use std::process::ExitCode;
+
+pub fn command(runs: &[PathBuf], out: &Path, force: bool) -> anyhow::Result<ExitCode> {
+    let (path, merged) = signfold::analysis::merge::merge_into(runs, out, force)?;
+    let groups: u64 = merged.runs.iter().map(|r| r.groups as u64).sum();
+    let particles: u64 = merged.runs.iter().map(|r| r.particles).sum();
+    for r in &merged.runs {
+        println!(
+            "{}: seed {}, {} particles, {} groups",
+            r.path.display(),
+            r.seed,
+            r.particles,
+            r.groups
+        );
+    }
+    println!(
+        "signfold: merged {} runs ({particles} particles, {groups} error groups in all); wrote {}",
+        merged.runs.len(),
+        path.display()
+    );
+    Ok(ExitCode::SUCCESS)
+}
