@@ -160,8 +160,9 @@ pub struct Projection {
     pub annihilations: u64,
 }
 
-/// Run the pilot: `setup`'s particles, budget and nothing else are scaled down for its
-/// duration and restored before returning.
+/// Run the pilot: `setup`'s particles and budget (and, if its sample leaves an error group
+/// with no positive net norm, the groups) are scaled down for its duration and restored
+/// before returning.
 pub fn pilot(setup: &mut Setup, comm: &dyn Comm) -> Result<Pilot> {
     let started = std::time::Instant::now();
     let saved = (setup.target, setup.budget);
@@ -169,7 +170,17 @@ pub fn pilot(setup: &mut Setup, comm: &dyn Comm) -> Result<Pilot> {
     let ratio = setup.target as f64 / sample as f64;
     setup.target = sample;
     setup.budget = ((setup.budget as f64 / ratio).round() as u64).max(1);
-    let measured = measure(setup, comm);
+    // A small sample of a strongly signed state can leave an error group with no positive
+    // net norm, which the run itself would refuse; the pilot needs counts, not error bars,
+    // so it then measures with one group (cells then span the groups, so it cancels a
+    // little more than the run will).
+    let groups = setup.groups;
+    let measured = measure(setup, comm).or_else(|_| {
+        setup.groups = 1;
+        let m = measure(setup, comm);
+        setup.groups = groups;
+        m
+    });
     (setup.target, setup.budget) = saved;
     let mut p = measured?;
     p.ratio = ratio;
