@@ -130,6 +130,25 @@ fn kill_nine_at_random_moments_loses_nothing() {
             libc::kill(-(child.id() as i32), libc::SIGKILL);
         }
         let _ = child.wait();
+        // Open MPI starts the ranks in process groups of their own, so they outlive the
+        // killed mpirun by a second or two. A crash of the job kills them too: do so for
+        // the rank that holds the output directory's lock (the one process that could
+        // still write there), and wait until it is gone.
+        if let Ok(lock) = std::fs::read_to_string(out.join("signfold.lock"))
+            && let Some(pid) = lock
+                .lines()
+                .find_map(|l| l.strip_prefix("pid="))
+                .and_then(|p| p.trim().parse::<i32>().ok())
+        {
+            // SAFETY: signals to a rank of the job this test started.
+            unsafe {
+                libc::kill(pid, libc::SIGKILL);
+            }
+            let t0 = Instant::now();
+            while unsafe { libc::kill(pid, 0) } == 0 && t0.elapsed() < Duration::from_secs(30) {
+                std::thread::sleep(Duration::from_millis(10));
+            }
+        }
         assert!(
             !checkpoints(&out).is_empty(),
             "trial {trial}: no checkpoint was written"
