@@ -3,6 +3,7 @@
 //! hierarchy of meshes (level ℓ: cells 2^ℓ times the finest in x and in k).
 
 use crate::config::job::CellKind;
+use crate::config::limits::MAX_N;
 use crate::physics::numerics::Setup;
 use crate::physics::rng;
 use anyhow::{Result, bail};
@@ -111,14 +112,9 @@ impl CellMesh {
     #[inline]
     pub fn key_at(&self, x: &[f64], k: &[f64], id: u64, level: u32) -> u128 {
         let n = self.n;
-        let mut buf = [0u64; 8];
-        let mut big;
-        let cells: &mut [u64] = if n <= 8 {
-            &mut buf[..n]
-        } else {
-            big = vec![0u64; n];
-            &mut big
-        };
+        // n ≤ MAX_N is checked when the job is read.
+        let mut buf = [0u64; MAX_N];
+        let cells = &mut buf[..n];
         let (xm, km) = match self.kind {
             CellKind::Full => (0.0, 0.0),
             CellKind::Relative => (
@@ -174,14 +170,9 @@ impl CellMesh {
         }
         let n = self.n;
         let mask = (1u128 << self.bits_one) - 1;
-        let mut buf = [0u64; 8];
-        let mut big;
-        let cells: &mut [u64] = if n <= 8 {
-            &mut buf[..n]
-        } else {
-            big = vec![0u64; n];
-            &mut big
-        };
+        // n ≤ MAX_N is checked when the job is read.
+        let mut buf = [0u64; MAX_N];
+        let cells = &mut buf[..n];
         let mut rest = key;
         for i in (0..n).rev() {
             let c = (rest & mask) as u64;
