@@ -109,11 +109,55 @@ pub fn student_two_sided_p(t: f64, nu: f64) -> f64 {
     incomplete_beta(nu / (nu + t * t), 0.5 * nu, 0.5)
 }
 
+/// Upper tail of the standard normal, Q(z) = P(Z > z) = erfc(z/√2)/2, by the complementary
+/// error function's Chebyshev fit (Numerical Recipes, 2nd ed., §6.2, `erfcc`; fractional
+/// error below 1.2·10⁻⁷ everywhere, quoted from memory).
+pub fn normal_upper_tail(z: f64) -> f64 {
+    let x = z / std::f64::consts::SQRT_2;
+    let a = x.abs();
+    let t = 1.0 / (1.0 + 0.5 * a);
+    let poly = -a * a - 1.265_512_23
+        + t * (1.000_023_68
+            + t * (0.374_091_96
+                + t * (0.096_784_18
+                    + t * (-0.186_288_06
+                        + t * (0.278_868_07
+                            + t * (-1.135_203_98
+                                + t * (1.488_515_87 + t * (-0.822_152_23 + t * 0.170_872_77))))))));
+    let erfc = t * poly.exp();
+    0.5 * if x >= 0.0 { erfc } else { 2.0 - erfc }
+}
+
+/// The normal score of a two-sided p-value: the |z| with P(|Z| > |z|) = p (∞ for p = 0),
+/// found by bisection on [`normal_upper_tail`] (monotone), to 10⁻⁹.
+pub fn normal_score_two_sided(p: f64) -> f64 {
+    if p <= 0.0 {
+        return f64::INFINITY;
+    }
+    if p >= 1.0 {
+        return 0.0;
+    }
+    let (mut lo, mut hi) = (0.0_f64, 40.0_f64);
+    while hi - lo > 1e-9 {
+        let mid = 0.5 * (lo + hi);
+        if 2.0 * normal_upper_tail(mid) > p {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+    }
+    0.5 * (lo + hi)
+}
+
 /// The studentised difference of one scalar estimate from its exact value.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct ScalarTest {
     /// (estimate − exact) / se; ±∞ when se = 0 and they differ, 0 when se = 0 and they agree.
     pub t: f64,
+    /// The normal score of `p` with the sign of t: the statistic an acceptance |z| ≤ c uses,
+    /// so that c means the same tail probability whatever the number of groups (with
+    /// B = 8, |t| = 3.5 is p ≈ 0.01, while |z| = 3.5 is p ≈ 4.7·10⁻⁴).
+    pub z: f64,
     /// Two-sided p-value under t(B − 1).
     pub p: f64,
 }
@@ -131,15 +175,22 @@ pub fn scalar_test(
     let diff = estimate - exact;
     if se > 0.0 {
         let t = diff / se;
+        let p = student_two_sided_p(t, groups as f64 - 1.0);
         ScalarTest {
             t,
-            p: student_two_sided_p(t, groups as f64 - 1.0),
+            z: t.signum() * normal_score_two_sided(p),
+            p,
         }
     } else if diff.abs() <= exact_tolerance {
-        ScalarTest { t: 0.0, p: 1.0 }
+        ScalarTest {
+            t: 0.0,
+            z: 0.0,
+            p: 1.0,
+        }
     } else {
         ScalarTest {
             t: diff.signum() * f64::INFINITY,
+            z: diff.signum() * f64::INFINITY,
             p: 0.0,
         }
     }
@@ -310,6 +361,21 @@ mod tests {
             assert!((incomplete_beta(x, 3.5, 1.0) - x.powf(3.5)).abs() < 1e-12);
             assert!((incomplete_beta(x, 1.0, 2.5) - (1.0 - (1.0 - x).powf(2.5))).abs() < 1e-12);
         }
+    }
+
+    #[test]
+    fn normal_scores_match_tables() {
+        // Two-sided normal points (standard tables, values from memory): p = 0.05 ↔ 1.959964,
+        // 0.01 ↔ 2.575829, 4.6525·10⁻⁴ ↔ 3.5; and Q(0) = 1/2 exactly by symmetry.
+        for (p, z) in [(0.05, 1.959964), (0.01, 2.575829), (4.6525e-4, 3.5)] {
+            let got = normal_score_two_sided(p);
+            assert!((got - z).abs() < 2e-4, "p = {p}: z = {got}, table {z}");
+        }
+        assert!((normal_upper_tail(0.0) - 0.5).abs() < 1e-7);
+        assert!((normal_upper_tail(-1.0) + normal_upper_tail(1.0) - 1.0).abs() < 1e-12);
+        // The scalar test's z carries t's sign and, for B = 8, is smaller than |t| in the tail.
+        let s = scalar_test(1.0 + 3.5e-3, 1e-3, 1.0, 8, 0.0);
+        assert!(s.z > 0.0 && s.z < s.t && (s.z - normal_score_two_sided(s.p)).abs() < 1e-12);
     }
 
     #[test]
