@@ -467,13 +467,14 @@ impl Heatmap<'_> {
                     [(lo, lo), (hi, hi)],
                     6,
                     9,
-                    RGBColor(0, 110, 140).stroke_width(1),
+                    RGBColor(colormap::MARK.0, colormap::MARK.1, colormap::MARK.2).stroke_width(1),
                 ))?
                 .label("x = x′")
                 .legend(|(x, y)| {
                     PathElement::new(
                         vec![(x, y), (x + 20, y)],
-                        RGBColor(0, 110, 140).stroke_width(1),
+                        RGBColor(colormap::MARK.0, colormap::MARK.1, colormap::MARK.2)
+                            .stroke_width(1),
                     )
                 });
             chart
