@@ -282,9 +282,10 @@ fn make_format_1(path: &Path, old_job: &str) {
         let ds = f.new_dataset::<f64>().shape([nt]).create(name).unwrap();
         ds.write_raw(&vec![0.0; nt]).unwrap();
     }
-    let run = f.group("run").unwrap();
-    run.relink("seconds_selection", "seconds_regeneration")
-        .unwrap();
+    if let Ok(run) = f.group("run") {
+        run.relink("seconds_selection", "seconds_regeneration")
+            .unwrap();
+    }
     f.delete_attr("format_version").unwrap();
     f.new_attr::<u32>()
         .create("format_version")
@@ -394,4 +395,75 @@ fn result_files_link_the_old_names_and_files_with_the_old_names_are_read() {
     ]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("format version"), "{}", stderr(&o));
+}
+
+/// The stored job text with the format-1 key names.
+fn old_keys(text: &str) -> String {
+    text.replace("\nsamples = ", "\nparticles = ")
+        .replace("\nmesh_cells = ", "\ncells = ")
+}
+
+/// A checkpoint of format 1 (attribute and group `particles`, a zero `/state/lost_momentum`,
+/// the job with the old keys, a results copy of format 1) is resumed, and the run ends
+/// bit-identical to one that never stopped.
+#[test]
+fn a_checkpoint_of_format_1_is_resumed_bit_identically() {
+    use signfold::io::checkpoint;
+    let dir = tempfile::tempdir().unwrap();
+    let job = write_job(dir.path(), "job.toml", FREE_PAIR);
+    let (full, part) = (dir.path().join("full"), dir.path().join("part"));
+    let run = |out: &Path, extra: &[&str]| {
+        let mut a = vec!["run", job.to_str().unwrap(), "--out", out.to_str().unwrap()];
+        a.extend_from_slice(extra);
+        ok(&signfold(&a));
+    };
+    run(&full, &[]);
+    run(&part, &["--until", "4"]);
+    let steps = checkpoint::list(&part);
+    assert_eq!(steps.len(), 1, "one checkpoint at t = 4");
+    let cp = checkpoint::particle_path(&part, steps[0]);
+    {
+        let f = hdf5::File::open_rw(&cp).unwrap();
+        let total: u64 = f.attr("samples").unwrap().read_scalar().unwrap();
+        f.delete_attr("samples").unwrap();
+        f.new_attr::<u64>()
+            .create("particles")
+            .unwrap()
+            .write_scalar(&total)
+            .unwrap();
+        f.relink("samples", "particles").unwrap();
+        let state = f.group("state").unwrap();
+        let groups = state.dataset("s0").unwrap().size();
+        state
+            .new_dataset::<i64>()
+            .shape([groups])
+            .create("lost_momentum")
+            .unwrap()
+            .write_raw(&vec![0i64; groups])
+            .unwrap();
+        f.delete_attr("format_version").unwrap();
+        f.new_attr::<u32>()
+            .create("format_version")
+            .unwrap()
+            .write_scalar(&1u32)
+            .unwrap();
+        let text = signfold::io::results::read_str_attr(&f, "job").unwrap();
+        assert!(text.contains("\nsamples = "), "{text}");
+        f.delete_attr("job").unwrap();
+        signfold::io::results::write_str_attr(&f, "job", &old_keys(&text)).unwrap();
+    }
+    let copy = checkpoint::results_path(&part, steps[0]);
+    let text = ResultFile::read(&copy).unwrap().job_text;
+    make_format_1(&copy, &old_keys(&text));
+    let shown = ok(&signfold(&["inspect", cp.to_str().unwrap()]));
+    assert!(shown.contains("samples:"), "{shown}");
+    ok(&signfold(&["resume", part.to_str().unwrap()]));
+    let a = ResultFile::read(&full.join(names::OBSERVABLES_FILE)).unwrap();
+    let b = ResultFile::read(&part.join(names::OBSERVABLES_FILE)).unwrap();
+    assert_eq!(
+        b.format_version,
+        names::FORMAT_VERSION,
+        "written in the new layout"
+    );
+    assert_same_datasets(&a, &b, "resumed from a format-1 checkpoint");
 }
