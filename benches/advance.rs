@@ -64,7 +64,7 @@ fn main() {
         .ok()
         .and_then(|v| v.parse().ok())
         .unwrap_or(1_000_000);
-    let set = [format!("numerics.particles={particles}")];
+    let set = [format!("numerics.samples={particles}")];
     let free = support::setup("fermion-pair.toml", &set);
     let coulomb = support::setup("fermion-pair-coulomb.toml", &set);
     let (state, _) = start::initial_state(&free, &Solo).expect("initial particles");

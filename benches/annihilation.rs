@@ -96,7 +96,7 @@ fn main() {
         None => (&Solo, "Solo (MPI did not start)"),
     };
     let t0 = Instant::now();
-    let set = [format!("numerics.particles={}", target / 2)];
+    let set = [format!("numerics.samples={}", target / 2)];
     let setup = support::setup("fermion-pair-coulomb.toml", &set);
     let mesh = CellMesh::new(&setup).expect("cell mesh");
     let (state, _) = start::initial_state(&setup, &Solo).expect("initial particles");

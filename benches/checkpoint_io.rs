@@ -74,7 +74,6 @@ fn main() {
         gone: Departed {
             left: vec![0; 8],
             right: vec![0; 8],
-            momentum: vec![0; 8],
         },
         initial_count: total,
         annihilations: 0,

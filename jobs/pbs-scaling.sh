@@ -6,7 +6,7 @@
 #     whole nodes so that the timings mean something), walltime;
 #   - JOB, SIGNFOLD, MODULES, OUT (results; the runs themselves go to OUT/runs and are
 #     deleted after reading), RANKS (the rank counts, at most the MPI ranks of the job),
-#     PARTICLES (strong: total; weak: per rank), REPEAT (runs per point; the shortest counts),
+#     SAMPLES (Monte Carlo samples; strong: total; weak: per rank; PARTICLES is its old name), REPEAT (runs per point; the shortest counts),
 #     LAUNCH (the launcher and its options; `-n P` follows).
 #
 # The driver runs in the batch shell itself and launches `LAUNCH -n P signfold run …` for
@@ -28,7 +28,10 @@ SIGNFOLD="${SIGNFOLD:-$HOME/signfold/target/release/signfold}"
 MODULES="${MODULES:-}"          # e.g. "gcc/12 openmpi/4.1 hdf5-mpi/1.14"
 OUT="${OUT:-/scratch/$USER/signfold-scaling}"
 RANKS="${RANKS:-1,2,4,8,16,32,64,128}"
-PARTICLES="${PARTICLES:-1000000}"
+if [ -n "${PARTICLES:-}" ] && [ -z "${SAMPLES:-}" ]; then
+    echo "warning: PARTICLES is the old name of SAMPLES (renamed in format version 2); use SAMPLES" >&2
+fi
+SAMPLES="${SAMPLES:-${PARTICLES:-1000000}}"
 REPEAT="${REPEAT:-2}"
 LAUNCH="${LAUNCH:-mpirun --hostfile $PBS_NODEFILE}"
 
@@ -38,5 +41,5 @@ if [[ -n "$MODULES" ]]; then
 fi
 export OMP_NUM_THREADS=1
 
-"$SIGNFOLD" scaling "$JOB" --ranks "$RANKS" --particles "$PARTICLES" --mode all \
+"$SIGNFOLD" scaling "$JOB" --ranks "$RANKS" --samples "$SAMPLES" --mode all \
     --repeat "$REPEAT" --out "$OUT" --launcher "$LAUNCH"

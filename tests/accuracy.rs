@@ -102,7 +102,7 @@ fn fermion_pair_density_and_pair_density_agree_with_the_exact_reference() {
     let dir = tempfile::tempdir().unwrap();
     let job = demo("fermion-pair.toml");
     let rf = reference(dir.path(), &job, &[]);
-    let mc = run_job(dir.path(), &job, &["--particles", "300000"]);
+    let mc = run_job(dir.path(), &job, &["--samples", "300000"]);
     let d = assert_l1_within(&mc, &rf, "density", FERMION_PAIR_DENSITY_FLOOR);
     let p = assert_l1_within(&mc, &rf, "pair_density", FERMION_PAIR_PAIR_FLOOR);
     eprintln!("fermion-pair: worst L1/bound density {d:.2}, pair {p:.2}");
@@ -120,7 +120,7 @@ fn barrier_packet_density_and_transmitted_norm_agree_with_the_exact_reference() 
     let mc = run_job(
         dir.path(),
         &job,
-        &["--particles", "200000", "--set", "annihilation.cell_x=0.5"],
+        &["--samples", "200000", "--set", "annihilation.cell_x=0.5"],
     );
     let d = assert_l1_within(&mc, &rf, "density", BARRIER_DENSITY_FLOOR);
     let last = mc.times().len() - 1;
@@ -144,7 +144,7 @@ fn interacting_fermion_pair_agrees_with_the_exact_reference() {
     let dir = tempfile::tempdir().unwrap();
     let job = demo("fermion-pair-coulomb.toml");
     let rf = reference(dir.path(), &job, &[]);
-    let mc = run_job(dir.path(), &job, &["--particles", "200000"]);
+    let mc = run_job(dir.path(), &job, &["--samples", "200000"]);
     let d = assert_l1_within(&mc, &rf, "density", COULOMB_DENSITY_FLOOR);
     let p = assert_l1_within(&mc, &rf, "pair_density", COULOMB_PAIR_FLOOR);
     eprintln!("fermion-pair-coulomb: worst L1/bound density {d:.2}, pair {p:.2}");

@@ -134,23 +134,19 @@ fn check(file: &str, overrides: &[&str], intervals: u64) {
 /// Exchange-merged relative cells of two interacting fermions.
 #[test]
 fn interacting_pair_keeps_what_the_rule_names() {
-    check(
-        "fermion-pair-coulomb.toml",
-        &["numerics.particles=20000"],
-        6,
-    );
+    check("fermion-pair-coulomb.toml", &["numerics.samples=20000"], 6);
 }
 
 /// Full cells with a one-body barrier (one particle).
 #[test]
 fn barrier_packet_keeps_what_the_rule_names() {
-    check("barrier-packet.toml", &["numerics.particles=20000"], 6);
+    check("barrier-packet.toml", &["numerics.samples=20000"], 6);
 }
 
 /// Three particles in a trap: keys of three sorted cells.
 #[test]
 fn three_fermions_keep_what_the_rule_names() {
-    check("three-fermions-trap.toml", &["numerics.particles=5000"], 4);
+    check("three-fermions-trap.toml", &["numerics.samples=5000"], 4);
 }
 
 /// Adaptive resolution, on hand-placed samples of a one-particle job: two sibling finest

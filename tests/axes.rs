@@ -101,7 +101,7 @@ fn monte_carlo_results_have_named_axes_and_units() {
         job.to_str().unwrap(),
         "--out",
         out.to_str().unwrap(),
-        "--particles",
+        "--samples",
         "20000",
     ]));
     let path = out.join(names::OBSERVABLES_FILE);
@@ -117,7 +117,7 @@ fn monte_carlo_results_have_named_axes_and_units() {
         "momentum_density",
         "norm",
         "energy_error",
-        "particles",
+        "samples",
         "run/rank",
         "run/seconds_advance",
         "run/bytes_sent",
@@ -152,7 +152,7 @@ fn annihilation_records_and_reference_have_named_axes() {
         job.to_str().unwrap(),
         "--out",
         mc.to_str().unwrap(),
-        "--particles",
+        "--samples",
         "20000",
         "--set",
         "numerics.end_time=20",

@@ -195,7 +195,7 @@ fn memory_cap_stops_the_run_with_the_numbers() {
     assert!(
         err.contains("memory cap")
             && err.contains("numerics.memory_limit_mib")
-            && err.contains("particle count"),
+            && err.contains("sample count"),
         "{err}"
     );
 }

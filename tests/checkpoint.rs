@@ -13,7 +13,7 @@ use std::time::{Duration, Instant};
 
 /// The barrier demo, small: kernel events, annihilation and absorption all happen.
 const SMALL: [&str; 8] = [
-    "--particles",
+    "--samples",
     "20000",
     "--set",
     "numerics.end_time=40",

@@ -58,8 +58,7 @@ fn coulomb_pair_differs_from_free_pair() {
     // The repulsion costs no norm inside the domain beyond what the boundaries tally.
     let n = last(&coulomb, "norm")[0]
         + last(&coulomb, "absorbed_left")[0]
-        + last(&coulomb, "absorbed_right")[0]
-        + last(&coulomb, "lost_norm")[0];
+        + last(&coulomb, "absorbed_right")[0];
     assert!((n - 1.0).abs() < 1e-12);
 }
 
@@ -122,7 +121,6 @@ fn three_fermions_in_the_trap() {
     let (e, ee) = (&s["energy"].data, &s["energy_error"].data);
     for i in 0..r.times().len() {
         assert_eq!(s["norm"].data[i], 1.0);
-        assert_eq!(s["lost_norm"].data[i], 0.0);
         assert!(
             (e[i] - e[0]).abs() < 5.0 * (ee[i] + ee[0]),
             "t = {}: {} vs {}",

@@ -41,7 +41,7 @@ fn barrier_run_is_identical_on_any_partition() {
     let dir = tempfile::tempdir().unwrap();
     let job = demo("barrier-packet.toml");
     let extra = [
-        "--particles",
+        "--samples",
         "20000",
         "--set",
         "numerics.end_time=60",
@@ -69,7 +69,7 @@ fn interacting_pair_is_identical_on_any_partition() {
     let dir = tempfile::tempdir().unwrap();
     let job = demo("fermion-pair-coulomb.toml");
     let extra = [
-        "--particles",
+        "--samples",
         "20000",
         "--set",
         "numerics.end_time=40",
@@ -95,7 +95,7 @@ fn merged_cells_are_identical_on_any_partition() {
         let sub = dir.path().join(resolution);
         let r = format!("annihilation.resolution=\"{resolution}\"");
         let extra = [
-            "--particles",
+            "--samples",
             "20000",
             "--set",
             "numerics.end_time=60",

@@ -35,8 +35,8 @@ fn job(stats: &str, orbs: &[Orb], particles: u64) -> String {
         );
     }
     s += &format!(
-        "[domain]\nx_min = -100.0\nx_max = 100.0\ncells = 200\nboundary = \"absorbing\"\nk_max = 2.0\n\n\
-         [numerics]\ncoherence_length = 100.0\nsync_step = 2.0\nend_time = 40.0\nparticles = {particles}\ngroups = {GROUPS}\nseed = 11\n\n\
+        "[domain]\nx_min = -100.0\nx_max = 100.0\nmesh_cells = 200\nboundary = \"absorbing\"\nk_max = 2.0\n\n\
+         [numerics]\ncoherence_length = 100.0\nsync_step = 2.0\nend_time = 40.0\nsamples = {particles}\ngroups = {GROUPS}\nseed = 11\n\n\
          [output]\ninterval = 20.0\nx_bins = 50\nk_bins = 20\n"
     );
     s

@@ -83,7 +83,7 @@ fn soft_coulomb_pair_table_moments() {
         &["domain.k_max=6.0"],
     );
     let t = s.table2.as_ref().expect("pair table");
-    assert_eq!(t.points, 2 * s.job.domain.cells);
+    assert_eq!(t.points, 2 * s.job.domain.mesh_cells);
     assert!(
         (t.lo + (s.hi - s.lo)).abs() < 1e-12,
         "relative mesh starts at −L"

@@ -151,9 +151,11 @@ fn dataset_names_are_spelled_only_in_io_names() {
         "\"absorbed_left\"",
         "\"absorbed_right\"",
         "\"norm_right\"",
-        "\"lost_norm\"",
         "\"energy\"",
-        "\"particles\"",
+        // (`samples` alone is also a job key, spelled in config::job.)
+        "\"samples_positive\"",
+        "\"samples_negative\"",
+        "\"particles_positive\"",
         "\"annihilation_before\"",
         "\"observables.h5\"",
         "\"reference.h5\"",

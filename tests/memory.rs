@@ -29,7 +29,7 @@ width = 8.0
 [domain]
 x_min = -140.0
 x_max = 140.0
-cells = 560
+mesh_cells = 560
 boundary = "absorbing"
 k_max = 2.5
 
@@ -43,7 +43,7 @@ height = -0.1
 coherence_length = 60.0
 sync_step = 1.0
 end_time = 60.0
-particles = 40000
+samples = 40000
 groups = 8
 seed = 103
 
@@ -165,7 +165,7 @@ fn forecast_brackets_the_peak_resident_memory_of_a_run() {
     let dir = tempfile::tempdir().unwrap();
     let job = write_job(dir.path(), "well.toml", JOB);
     let job_s = job.to_str().unwrap();
-    let small = ["--set", "numerics.particles=200"];
+    let small = ["--set", "numerics.samples=200"];
     // The small run first: the children's peak is a maximum over all children so far.
     let out_small = dir.path().join("small");
     let mut args = vec![job_s, "--out", out_small.to_str().unwrap()];
@@ -203,7 +203,7 @@ fn forecast_brackets_the_peak_resident_memory_of_a_run() {
 
     const MIB: f64 = (1u64 << 20) as f64;
     let part = |p: &Printed| {
-        ["particle store", "advance", "resolution", "annihilation"]
+        ["sample store", "advance", "resolution", "annihilation"]
             .iter()
             .map(|n| p.terms.get(*n).copied().unwrap_or(0.0) * MIB)
             .sum::<f64>()
@@ -212,7 +212,7 @@ fn forecast_brackets_the_peak_resident_memory_of_a_run() {
     let forecast = part(&big) - part(&small_f);
     // Scale from the forecast peak (budget × g) to the true one.
     let (lo_scale, hi_scale) = (1.0 / big.growth_max, g_hat / big.growth_max);
-    let store = big.terms["particle store"] * MIB;
+    let store = big.terms["sample store"] * MIB;
     // Annihilation buffers without cells and with the fewest candidates: per particle its
     // cell index and keep flag (9 B); the keys of several threads left out.
     let peak_f = big.peak;

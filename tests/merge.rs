@@ -24,7 +24,7 @@ fn run(dir: &Path, name: &str, particles: u32, seed: u32, extra: &[&str]) -> Pat
         s(&job),
         "--out",
         s(&out),
-        "--particles",
+        "--samples",
         &p,
         "--set",
         &sd,
@@ -60,12 +60,12 @@ fn merged_runs_agree_with_one_run_of_the_summed_sample_count() {
     let ra = ResultFile::read(&a.join("observables.h5")).unwrap();
     let rb = ResultFile::read(&b.join("observables.h5")).unwrap();
     assert_eq!(m.times(), o.times());
-    assert!(m.job_text.contains("groups = 16") && m.job_text.contains("particles = 40000"));
+    assert!(m.job_text.contains("groups = 16") && m.job_text.contains("samples = 40000"));
     // Sample counts add up.
-    for (i, &c) in m.series["particles"].data.iter().enumerate() {
+    for (i, &c) in m.series["samples"].data.iter().enumerate() {
         assert_eq!(
             c,
-            ra.series["particles"].data[i] + rb.series["particles"].data[i]
+            ra.series["samples"].data[i] + rb.series["samples"].data[i]
         );
     }
     // Scalars at the last output: z = (merged − one)/sqrt(se² + se²) is close to Student t
@@ -159,7 +159,8 @@ fn merge_refuses_what_cannot_be_merged() {
         &signfold(&["merge", s(&a), s(&short), "--out", s(&out)]),
         &["different output times", "merge complete runs only"],
     );
-    // Another format version.
+    // A format version this program does not read (a future one).
+    let future = signfold::io::names::FORMAT_VERSION + 1;
     let v2 = d.join("v2.h5");
     std::fs::copy(a.join("observables.h5"), &v2).unwrap();
     {
@@ -168,12 +169,12 @@ fn merge_refuses_what_cannot_be_merged() {
         f.new_attr::<u32>()
             .create("format_version")
             .unwrap()
-            .write_scalar(&2u32)
+            .write_scalar(&future)
             .unwrap();
     }
     refused(
         &signfold(&["merge", s(&v2), s(&b), "--out", s(&out)]),
-        &["v2.h5", "format version 2"],
+        &["v2.h5", &format!("format version {future}")],
     );
     assert!(!out.exists(), "a refused merge wrote {}", out.display());
 

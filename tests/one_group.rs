@@ -19,7 +19,7 @@ fn one_group_writes_nan_errors_and_finite_values() {
         &s(&job),
         "--out",
         &s(&out),
-        "--particles",
+        "--samples",
         "4000",
         "--set",
         "numerics.end_time=10",

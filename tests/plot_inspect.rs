@@ -60,7 +60,7 @@ fn synthetic(path: &Path, skip: &[&str]) {
         push("pair_density", "1/nm²", &[NX, NX], p);
         push("norm", "1", &[], vec![1.0 - 0.01 * n as f64]);
         push("energy", "eV", &[], vec![0.3 + 0.001 * (n as f64).sin()]);
-        push("particles", "1", &[], vec![1000.0 + 250.0 * n as f64]);
+        push("samples", "1", &[], vec![1000.0 + 250.0 * n as f64]);
     }
     rf.write_atomic(path)
         .expect("the synthetic file is written");
@@ -189,7 +189,7 @@ fn requested_times_snap_to_outputs_and_against_adds_no_pictures() {
         dir.path().join("reference.h5"),
     );
     synthetic(&a, &[]);
-    synthetic(&b, &["pair_density", "particles", "density_error"]);
+    synthetic(&b, &["pair_density", "samples", "density_error"]);
     let out = dir.path().join("p");
     let run = signfold(&[
         "plot",

@@ -66,7 +66,7 @@ k_max = {k_max}
 coherence_length = 50.0
 sync_step = 1.0
 end_time = {end}
-particles = 1000
+samples = 1000
 [output]
 interval = {interval}
 x_bins = {x_bins}
@@ -112,7 +112,7 @@ k_max = {k_max}
 coherence_length = 50.0
 sync_step = 1.0
 end_time = {end}
-particles = 1000
+samples = 1000
 [output]
 interval = {interval}
 x_bins = {x_bins}
@@ -629,7 +629,7 @@ fn refuses_more_than_three_particles_and_dependent_fermion_orbitals() {
     let job = format!(
         "[particles]\ncount = 4\nstatistics = \"fermion\"\n{four}\
          [domain]\nx_min = -20.0\nx_max = 30.0\nboundary = \"reflecting\"\nk_max = 2.0\n\
-         [numerics]\ncoherence_length = 20.0\nsync_step = 1.0\nend_time = 2.0\nparticles = 100\n"
+         [numerics]\ncoherence_length = 20.0\nsync_step = 1.0\nend_time = 2.0\nsamples = 100\n"
     );
     let e = solve_with(&load(&job), &ReferenceOptions::default(), &mut |_| {}).unwrap_err();
     assert!(format!("{e:#}").contains("at most 3 particles"), "{e:#}");

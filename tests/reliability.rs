@@ -130,7 +130,7 @@ fn sizes_that_allocate_are_refused_by_check_and_run() {
     for (set, key) in [
         ("output.x_bins=100000", "output.x_bins"),
         ("output.k_bins=100000000", "output.k_bins"),
-        ("domain.cells=1000000000", "domain.cells"),
+        ("domain.mesh_cells=1000000000", "domain.mesh_cells"),
         ("numerics.coherence_length=1e9", "numerics.coherence_length"),
         ("numerics.groups=30000", "numerics.groups"),
     ] {
@@ -230,7 +230,7 @@ fn output_directory_is_locked() {
     // Two runs at once into one directory: the second is refused while the first works.
     let slow = out.to_str().unwrap().to_string() + "-slow";
     let mut first = std::process::Command::new(bin())
-        .args(["run", j, "--out", &slow, "--particles", "200000"])
+        .args(["run", j, "--out", &slow, "--samples", "200000"])
         .args([
             "--set",
             "numerics.end_time=100000",
@@ -444,7 +444,7 @@ fn unwritable_output_is_found_before_computing() {
     if std::fs::File::create(Path::new(sys).join("signfold-probe")).is_err() {
         let r = signfold(&["run", j, "--out", sys]);
         refused_with(&r, &["not writable", sys]);
-        assert!(!stdout(&r).contains("particles at t = 0"), "{}", stdout(&r));
+        assert!(!stdout(&r).contains("samples at t = 0"), "{}", stdout(&r));
         // resume finds it before looking for checkpoints.
         refused_with(&signfold(&["resume", sys]), &["not writable", sys]);
     }
@@ -487,7 +487,7 @@ fn start_long(launch: &[&str], job: &Path, out: &Path) -> std::process::Child {
     }
     let child = cmd
         .args(["run", job.to_str().unwrap(), "--out", out.to_str().unwrap()])
-        .args(["--particles", "200000", "--threads", "1"])
+        .args(["--samples", "200000", "--threads", "1"])
         .args([
             "--set",
             "numerics.end_time=100000",
@@ -747,7 +747,7 @@ fn chunked_exchanges_give_identical_results() {
         let mut cmd = std::process::Command::new("mpirun");
         cmd.args(["-np", &ranks.to_string(), "--oversubscribe", bin()])
             .args(["run", job.to_str().unwrap(), "--out", out.to_str().unwrap()])
-            .args(["--particles", "20000", "--threads", "1"])
+            .args(["--samples", "20000", "--threads", "1"])
             .args(["--set", "numerics.end_time=30"])
             .args(["--set", "annihilation.trigger=1.5"])
             .env(signfold::engine::mpi::CHUNK_ENV, "61")

@@ -64,7 +64,7 @@ fn quick_series_writes_csv_picture_and_machine_description() {
         "mode",
         "ranks",
         "threads",
-        "particles_initial",
+        "samples_initial",
         "wall_s",
         "imbalance_advance",
         "bytes_sent_per_rank",
@@ -107,7 +107,7 @@ fn quick_series_writes_csv_picture_and_machine_description() {
         }
         // Weak scaling keeps the particles per rank; strong the total (sampling drops a
         // few outside the domain, the same ones on any partition).
-        let n: Vec<f64> = rows.iter().map(|r| num(r, "particles_initial")).collect();
+        let n: Vec<f64> = rows.iter().map(|r| num(r, "samples_initial")).collect();
         match series {
             "weak" => assert!((n[1] / n[0] - 2.0).abs() < 0.01, "weak counts {n:?}"),
             _ => assert!(n.iter().all(|&v| v == n[0]), "{series} counts {n:?}"),
@@ -145,7 +145,7 @@ fn phase_times_account_for_each_ranks_wall_time() {
             job.to_str().unwrap(),
             "--out",
             out.to_str().unwrap(),
-            "--particles",
+            "--samples",
             "50000",
             "--threads",
             "1",
@@ -290,7 +290,7 @@ fn slurm_template_resumes_and_detects_completion() {
     stub("sbatch", &format!("echo \"$@\" >> {}", submitted.display()));
     let dir = tmp.path().join("run");
     let job = demo("barrier-packet.toml");
-    let overrides = ["--set", "numerics.end_time=10", "--particles", "5000"];
+    let overrides = ["--set", "numerics.end_time=10", "--samples", "5000"];
     let mut first = vec!["run", job.to_str().unwrap(), "--out", dir.to_str().unwrap()];
     first.extend(["--until", "5"]);
     first.extend(overrides);

@@ -28,7 +28,7 @@ fn check_speaks_the_job_file_words() {
             [
                 "statistics \"fermion\"",
                 "boundary \"absorbing\"",
-                "cells \"full\"",
+                "coordinates \"full\"",
             ],
         ),
         (
@@ -37,7 +37,7 @@ fn check_speaks_the_job_file_words() {
             [
                 "statistics \"boson\"",
                 "boundary \"absorbing\"",
-                "cells \"full\"",
+                "coordinates \"full\"",
             ],
         ),
         (
@@ -46,7 +46,7 @@ fn check_speaks_the_job_file_words() {
             [
                 "statistics \"fermion\"",
                 "boundary \"reflecting\"",
-                "cells \"full\"",
+                "coordinates \"full\"",
             ],
         ),
     ] {
@@ -70,7 +70,7 @@ fn check_speaks_the_job_file_words() {
         "check",
         job.to_str().unwrap(),
         "--set",
-        "domain.cells=1000000",
+        "domain.mesh_cells=1000000",
     ]));
     let domain = line(&out, "domain:");
     assert!(domain.contains("1000000 cells of 1.60e-4 nm"), "{domain}");
@@ -81,7 +81,7 @@ fn check_speaks_the_job_file_words() {
 /// The ∫|W|/∫W that `check` prints at t = 0 is the one `run` prints (the same draws,
 /// summed the same way), labelled as such; with more draws than `check` sums it says it
 /// used the first ones. Both explain why the initial count differs from
-/// numerics.particles, and the count lies within five of the standard deviations they name.
+/// numerics.samples, and the count lies within five of the standard deviations they name.
 #[test]
 fn check_and_run_agree_on_the_initial_state() {
     let dir = tempfile::tempdir().unwrap();
@@ -94,8 +94,8 @@ fn check_and_run_agree_on_the_initial_state() {
     let check = ok(&signfold(&["check", j]));
     let sign = line(&check, "sign problem:");
     assert!(sign.contains("the value `run` prints"), "{sign}");
-    let note = line(&check, "initial particles:");
-    assert!(note.contains("numerics.particles = 2000"), "{note}");
+    let note = line(&check, "initial samples:");
+    assert!(note.contains("numerics.samples = 2000"), "{note}");
     let out = dir.path().join("out");
     let run = ok(&signfold(&[
         "run",
@@ -120,10 +120,10 @@ fn check_and_run_agree_on_the_initial_state() {
     // Stochastic rounding of 2000 draws: one standard deviation ≤ √2000/2 ≈ 22.4.
     assert!((count - 2000.0).abs() <= 5.0 * 22.4, "{started}");
     assert!(
-        run.contains("the initial count is random around numerics.particles = 2000"),
+        run.contains("the initial count is random around numerics.samples = 2000"),
         "{run}"
     );
-    let many = ok(&signfold(&["check", j, "--particles", "3000000"]));
+    let many = ok(&signfold(&["check", j, "--samples", "3000000"]));
     let sign = line(&many, "sign problem:");
     assert!(
         sign.contains("over the first 2000000 of the run's 3000000 initial draws"),

@@ -99,7 +99,7 @@ fn error_groups(f: &ResultFile) -> Option<u32> {
     if !f.series.keys().any(|k| k.ends_with(names::ERROR_SUFFIX)) {
         return None;
     }
-    toml::from_str::<crate::config::job::Job>(&f.job_text)
+    crate::config::job::parse_stored(&f.job_text)
         .ok()
         .map(|j| j.numerics.groups)
 }

@@ -23,7 +23,7 @@
 use anyhow::{Result, anyhow, bail};
 use std::path::{Path, PathBuf};
 
-use crate::config::job::{Job, apply_override};
+use crate::config::job::{Job, apply_override, current_spelling, parse_stored};
 use crate::io::names;
 use crate::io::results::{OBSERVABLES_TYPE, ResultFile, Series};
 
@@ -32,7 +32,7 @@ use crate::io::results::{OBSERVABLES_TYPE, ResultFile, Series};
 /// or left out, must agree (integers and floats of equal value agree).
 pub const MAY_DIFFER: [&str; 5] = [
     "numerics.seed",
-    "numerics.particles",
+    "numerics.samples",
     "numerics.groups",
     "numerics.memory_limit_mib",
     "checkpoint",
@@ -43,7 +43,7 @@ pub const MAY_DIFFER: [&str; 5] = [
 pub struct Run {
     pub path: PathBuf,
     pub seed: u64,
-    pub particles: u64,
+    pub samples: u64,
     pub groups: u32,
     /// Net sign at t = 0 (the estimators' normalisation S₀).
     pub s0: f64,
@@ -112,7 +112,8 @@ pub fn merge_paths(inputs: &[PathBuf]) -> Result<Merged> {
 
 /// A job's text as a TOML table, the keys that may differ removed.
 fn comparable(path: &Path, text: &str) -> Result<toml::Table> {
-    let mut t: toml::Table = toml::from_str(text).map_err(|e| {
+    let (text, _) = current_spelling(text, &path.display().to_string())?;
+    let mut t: toml::Table = toml::from_str(&text).map_err(|e| {
         anyhow!(
             "{}: the stored job text does not parse ({e})",
             path.display()
@@ -199,7 +200,14 @@ pub fn merge(files: &[(PathBuf, ResultFile)]) -> Result<Merged> {
                 f.file_type
             );
         }
-        let job: Job = toml::from_str(&f.job_text)
+        if f.format_version != f0.format_version {
+            bail!(
+                "{shown0} and {shown} have different format versions ({} and {}): merge runs written by one program version",
+                f0.format_version,
+                f.format_version
+            );
+        }
+        let job: Job = parse_stored(&f.job_text)
             .map_err(|e| anyhow!("{shown}: the stored job text does not load ({e})"))?;
         let t = comparable(path, &f.job_text)?;
         if let Some((key, a, b)) = first_difference(
@@ -230,7 +238,7 @@ pub fn merge(files: &[(PathBuf, ResultFile)]) -> Result<Merged> {
                 .and_then(|s| s.data.first().copied())
                 .ok_or_else(|| anyhow!("{shown}: dataset `{}` is missing", d.name))
         };
-        let s0 = first(names::PARTICLES_POSITIVE)? - first(names::PARTICLES_NEGATIVE)?;
+        let s0 = first(names::SAMPLES_POSITIVE)? - first(names::SAMPLES_NEGATIVE)?;
         if s0.is_nan() || s0 <= 0.0 {
             bail!("{shown}: the net sign at t = 0 is {s0}, not positive");
         }
@@ -244,7 +252,7 @@ pub fn merge(files: &[(PathBuf, ResultFile)]) -> Result<Merged> {
         runs.push(Run {
             path: path.clone(),
             seed: job.numerics.seed,
-            particles: job.numerics.particles,
+            samples: job.numerics.samples,
             groups: job.numerics.groups,
             s0,
         });
@@ -276,9 +284,9 @@ pub fn merge(files: &[(PathBuf, ResultFile)]) -> Result<Merged> {
     );
     out.program_version = f0.program_version.clone();
     let counts = [
-        names::PARTICLES.name,
-        names::PARTICLES_POSITIVE.name,
-        names::PARTICLES_NEGATIVE.name,
+        names::SAMPLES.name,
+        names::SAMPLES_POSITIVE.name,
+        names::SAMPLES_NEGATIVE.name,
     ];
     for (name, s) in &f0.series {
         if name.ends_with(names::ERROR_SUFFIX) && f0.series.contains_key(base(name)) {
@@ -333,25 +341,26 @@ fn base(name: &str) -> &str {
 /// The merged result's job: the first run's, with the summed sample count and groups, and
 /// a comment naming the runs and their seeds.
 fn merged_job_text(text: &str, runs: &[Run]) -> Result<String> {
-    let mut t: toml::Table = toml::from_str(text)?;
-    let particles: u64 = runs.iter().map(|r| r.particles).sum();
+    let (text, _) = current_spelling(text, "stored job")?;
+    let mut t: toml_edit::DocumentMut = text.parse()?;
+    let samples: u64 = runs.iter().map(|r| r.samples).sum();
     let groups: u32 = runs.iter().map(|r| r.groups).sum();
-    apply_override(&mut t, &format!("numerics.particles={particles}"))?;
+    apply_override(&mut t, &format!("numerics.samples={samples}"))?;
     apply_override(&mut t, &format!("numerics.groups={groups}"))?;
     let mut s = format!(
-        "# merged by signfold merge from {} runs (numerics.particles and numerics.groups are their sums; numerics.seed is the first run's):\n",
+        "# merged by signfold merge from {} runs (numerics.samples and numerics.groups are their sums; numerics.seed is the first run's):\n",
         runs.len()
     );
     for r in runs {
         s.push_str(&format!(
-            "#   {}: seed {}, {} particles, {} groups\n",
+            "#   {}: seed {}, {} samples, {} groups\n",
             r.path.display(),
             r.seed,
-            r.particles,
+            r.samples,
             r.groups
         ));
     }
-    s.push_str(&toml::to_string(&t)?);
+    s.push_str(&t.to_string());
     Ok(s)
 }
 

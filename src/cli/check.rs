@@ -19,6 +19,9 @@ use std::process::ExitCode;
 pub fn command(job: &Path, set: &[String], world: &World) -> Result<ExitCode> {
     let runtime = memory::process_status_bytes("VmRSS").unwrap_or(0.0);
     let loaded = collective(signfold::physics::defaults::load(job, set))?;
+    if world.is_root() {
+        super::warn_job(&loaded);
+    }
     let mut setup = collective(Setup::new(&loaded))?;
     // ∫|W|/∫W from the run's own initial draws, summed over the ranks as `run` does.
     let draws = setup.target.min(RATIO_DRAWS);
@@ -69,7 +72,7 @@ pub fn plan(setup: &mut Setup, world: &World, runtime: f64) -> Result<Plan> {
         writeln!(
             text,
             "upper estimate: {:.1} MiB per rank if the step that passes the budget grows at the bound rate \
-             (×{:.4} = exp(2Γ_max·Δt), peak {:.3e} live particles)",
+             (×{:.4} = exp(2Γ_max·Δt), peak {:.3e} live samples)",
             hi.total_mib(),
             (2.0 * setup.gamma_max * setup.dt).exp(),
             limit.peak
@@ -95,9 +98,9 @@ pub fn plan(setup: &mut Setup, world: &World, runtime: f64) -> Result<Plan> {
             .map(|t| format!("{} {:.1} MiB", t.name, t.bytes / MIB))
             .collect();
         Err(anyhow::anyhow!(
-            "the job does not fit: the forecast peak of {:.3e} live particles on all ranks needs {:.1} MiB per rank \
-             ({}) but {:.1} MiB are available per rank ({source}): lower annihilation.budget (the peak particle count \
-             follows it) or numerics.particles, raise the memory cap, or spread the job over more ranks (on more nodes \
+            "the job does not fit: the forecast peak of {:.3e} live samples on all ranks needs {:.1} MiB per rank \
+             ({}) but {:.1} MiB are available per rank ({source}): lower annihilation.budget (the peak sample count \
+             follows it) or numerics.samples, raise the memory cap, or spread the job over more ranks (on more nodes \
              when the node's memory is the limit)",
             proj.peak,
             f.total_mib(),
@@ -131,9 +134,9 @@ fn forecast_text(
     let w = &mut s;
     writeln!(
         w,
-        "pilot: {} particles (1/{:.1} of the job) for {} sync step(s) in {:.2} s, nothing written: count ×{:.4} per step \
-         (largest ×{:.4}), {} annihilation(s); one annihilation at the job's cells keeps {:.1} % of its {} particles \
-         (extrapolated: {:.1} % at the peak count); occupied cells per rank ∝ particles^{:.2} ({:.0} cells for {:.0} particles)",
+        "pilot: {} samples (1/{:.1} of the job) for {} sync step(s) in {:.2} s, nothing written: count ×{:.4} per step \
+         (largest ×{:.4}), {} annihilation(s); one annihilation at the job's cells keeps {:.1} % of its {} samples \
+         (extrapolated: {:.1} % at the peak count); occupied cells per rank ∝ samples^{:.2} ({:.0} cells for {:.0} samples)",
         p.initial,
         p.ratio,
         p.steps,
@@ -151,7 +154,7 @@ fn forecast_text(
     if proj.budget_bound {
         writeln!(
             w,
-            "forecast: peak {:.3e} live particles on all ranks: the count can reach annihilation.budget = {} within the job \
+            "forecast: peak {:.3e} live samples on all ranks: the count can reach annihilation.budget = {} within the job \
              (at the bound rate 2Γ_max from t ≈ {} fs), and one step of the pilot's largest growth (×{:.4}) passes it \
              before the trigger fires; {:.3e} left after that annihilation",
             proj.peak,
@@ -163,7 +166,7 @@ fn forecast_text(
     } else {
         writeln!(
             w,
-            "forecast: peak {:.3e} live particles on all ranks at t ≈ {} fs, {} annihilation(s) over the job at the pilot's \
+            "forecast: peak {:.3e} live samples on all ranks at t ≈ {} fs, {} annihilation(s) over the job at the pilot's \
              rates; the count cannot reach annihilation.budget = {} within the job even at the bound rate 2Γ_max",
             proj.peak,
             proj.peak_step as f64 * setup.dt,
@@ -198,7 +201,7 @@ fn forecast_text(
 const FORECAST_DRAWS: u64 = 20_000;
 
 /// At most this many of the run's initial draws give `check`'s ∫|W|/∫W (all of them, and so
-/// exactly the value `run` prints, for numerics.particles up to this).
+/// exactly the value `run` prints, for numerics.samples up to this).
 const RATIO_DRAWS: u64 = 2_000_000;
 
 /// The job-file word of a job value (`"fermion"`, `"absorbing"`, `"full"`).
@@ -209,19 +212,19 @@ fn word<T: serde::Serialize>(v: &T) -> String {
     }
 }
 
-/// Why the initial particle count differs from `numerics.particles` (printed by `check` and
-/// `run`): D draws, each emitting ⌊|w_d|/w₀ + U⌋ particles, U uniform on [0, 1).
+/// Why the initial sample count differs from `numerics.samples` (printed by `check` and
+/// `run`): D draws, each emitting ⌊|w_d|/w₀ + U⌋ samples, U uniform on [0, 1).
 pub fn count_note(draws: u64) -> String {
     format!(
-        "the initial count is random around numerics.particles = {draws}: each of the {draws} draws gives \
-         ⌊|w|/w₀ + U⌋ particles (w its signed weight, w₀ = Σ|w|/{draws}, U uniform), so the count equals {draws} on \
+        "the initial count is random around numerics.samples = {draws}: each of the {draws} draws gives \
+         ⌊|w|/w₀ + U⌋ samples (w its signed weight, w₀ = Σ|w|/{draws}, U uniform), so the count equals {draws} on \
          average and scatters by at most √{draws}/2 = {:.0} (one standard deviation); draws outside the domain or \
          momentum range are not kept",
         (draws as f64).sqrt() / 2.0
     )
 }
 
-/// The mean generation rate ⟨Γ⟩ (1/fs) of the initial particles, weighted by |w|.
+/// The mean generation rate ⟨Γ⟩ (1/fs) of the initial samples, weighted by |w|.
 fn forecast(setup: &Setup) -> Result<f64> {
     let w = setup.initial_state()?;
     let n = setup.n;
@@ -260,11 +263,11 @@ fn report(setup: &Setup, ratio: f64, draws: u64) -> Result<String> {
     )?;
     writeln!(
         w,
-        "domain: [{}, {}] nm, boundary \"{}\"; space mesh of {} cells of {} nm (domain.cells: kernel tables{})",
+        "domain: [{}, {}] nm, boundary \"{}\"; space mesh of {} cells of {} nm (domain.mesh_cells: kernel tables{})",
         setup.lo,
         setup.hi,
         word(&setup.boundary),
-        setup.job.domain.cells,
+        setup.job.domain.mesh_cells,
         short(setup.mesh_dx),
         if setup.job.annihilation.cell_x.is_none() {
             ", and the annihilation cell in x"
@@ -323,7 +326,7 @@ fn report(setup: &Setup, ratio: f64, draws: u64) -> Result<String> {
     let mesh = signfold::engine::annihilate::CellMesh::new(setup)?;
     writeln!(
         w,
-        "annihilation cells: {} nm × {} 1/nm, resolution \"{}\" ({}) (cells \"{}\"{}), mesh volume {:.3e} cells (stored sparsely), trigger at {}× the initial count or the count after the latest annihilation, if larger",
+        "annihilation cells: {} nm × {} 1/nm, resolution \"{}\" ({}) (coordinates \"{}\"{}), mesh volume {:.3e} cells (stored sparsely), trigger at {}× the initial count or the count after the latest annihilation, if larger",
         short(setup.cell_x),
         short(setup.cell_k),
         word(&setup.resolution),
@@ -345,7 +348,7 @@ fn report(setup: &Setup, ratio: f64, draws: u64) -> Result<String> {
     )?;
     writeln!(
         w,
-        "sign problem: ∫|W|/∫W = {ratio:.4} at t = 0 ({}); expected particle growth rate 2⟨Γ⟩ = {:.4e} 1/fs \
+        "sign problem: ∫|W|/∫W = {ratio:.4} at t = 0 ({}); expected sample growth rate 2⟨Γ⟩ = {:.4e} 1/fs \
          (×{:.3e} per sync step without annihilation; from the first {} draws)",
         if draws == setup.target {
             format!("Σ|w|/Σw over the run's {draws} initial draws: the value `run` prints")
@@ -360,7 +363,7 @@ fn report(setup: &Setup, ratio: f64, draws: u64) -> Result<String> {
         (2.0 * mean_rate * setup.dt).exp(),
         FORECAST_DRAWS
     )?;
-    writeln!(w, "initial particles: {}", count_note(setup.target))?;
+    writeln!(w, "initial samples: {}", count_note(setup.target))?;
     for warning in warnings(setup) {
         writeln!(w, "warning: {warning}")?;
     }

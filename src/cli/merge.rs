@@ -6,18 +6,18 @@ use std::process::ExitCode;
 pub fn command(runs: &[PathBuf], out: &Path, force: bool) -> anyhow::Result<ExitCode> {
     let (path, merged) = signfold::analysis::merge::merge_into(runs, out, force)?;
     let groups: u64 = merged.runs.iter().map(|r| r.groups as u64).sum();
-    let particles: u64 = merged.runs.iter().map(|r| r.particles).sum();
+    let samples: u64 = merged.runs.iter().map(|r| r.samples).sum();
     for r in &merged.runs {
         println!(
-            "{}: seed {}, {} particles, {} groups",
+            "{}: seed {}, {} samples, {} groups",
             r.path.display(),
             r.seed,
-            r.particles,
+            r.samples,
             r.groups
         );
     }
     println!(
-        "signfold: merged {} runs ({particles} particles, {groups} error groups in all); wrote {}",
+        "signfold: merged {} runs ({samples} samples, {groups} error groups in all); wrote {}",
         merged.runs.len(),
         path.display()
     );

@@ -40,11 +40,14 @@ pub enum Command {
     Check {
         /// The job file (TOML; see the README for its keys).
         job: PathBuf,
-        /// Override a job key (repeatable), e.g. --set numerics.particles=200000
+        /// Override a job key (repeatable), e.g. --set numerics.samples=200000
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
-        /// Shortcut for --set numerics.particles=N
+        /// Shortcut for --set numerics.samples=N (initial Monte Carlo samples)
         #[arg(long, value_name = "N")]
+        samples: Option<u64>,
+        /// The old spelling of --samples, read with a warning.
+        #[arg(long, value_name = "N", hide = true, conflicts_with = "samples")]
         particles: Option<u64>,
     },
     /// Run a job, writing DIR/observables.h5.
@@ -54,11 +57,14 @@ pub enum Command {
         /// Output directory: observables.h5, job.toml, checkpoints (created if needed).
         #[arg(long, value_name = "DIR")]
         out: PathBuf,
-        /// Override a job key (repeatable), e.g. --set numerics.particles=200000
+        /// Override a job key (repeatable), e.g. --set numerics.samples=200000
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
-        /// Shortcut for --set numerics.particles=N
+        /// Shortcut for --set numerics.samples=N (initial Monte Carlo samples)
         #[arg(long, value_name = "N")]
+        samples: Option<u64>,
+        /// The old spelling of --samples, read with a warning.
+        #[arg(long, value_name = "N", hide = true, conflicts_with = "samples")]
         particles: Option<u64>,
         /// Overwrite results already in DIR (its old checkpoints are deleted).
         #[arg(long)]
@@ -94,7 +100,7 @@ pub enum Command {
         /// Output directory for reference.h5 (created if needed).
         #[arg(long, value_name = "DIR")]
         out: PathBuf,
-        /// Override a job key (repeatable), e.g. --set numerics.particles=200000
+        /// Override a job key (repeatable), e.g. --set numerics.samples=200000
         #[arg(long = "set", value_name = "KEY=VALUE")]
         set: Vec<String>,
         /// Overwrite a reference.h5 already in DIR.
@@ -251,11 +257,34 @@ fn collective<T>(r: anyhow::Result<T>) -> anyhow::Result<T> {
     r.map_err(|e| Collective(format!("{e:#}")).into())
 }
 
-fn with_particles(mut set: Vec<String>, particles: Option<u64>) -> Vec<String> {
-    if let Some(n) = particles {
-        set.push(format!("numerics.particles={n}"));
+/// `--set` with `--samples N` (or its old spelling `--particles N`, warned about on rank 0).
+fn with_samples(
+    mut set: Vec<String>,
+    samples: Option<u64>,
+    particles: Option<u64>,
+    root: bool,
+) -> Vec<String> {
+    if particles.is_some() && root {
+        warn_old_option("--particles", "--samples");
+    }
+    if let Some(n) = samples.or(particles) {
+        set.push(format!("numerics.samples={n}"));
     }
     set
+}
+
+/// The warning for an option renamed in format version 2 (the old spelling still works).
+pub fn warn_old_option(old: &str, new: &str) {
+    eprintln!(
+        "signfold: warning: {old} is the old name of {new} (renamed in format version 2); read as {new} for now, use {new}"
+    );
+}
+
+/// The deprecation warnings of a loaded job, one line each on stderr.
+pub fn warn_job(job: &signfold::config::job::LoadedJob) {
+    for w in &job.warnings {
+        eprintln!("signfold: warning: {w}");
+    }
 }
 
 /// One rayon pool per rank: `--threads`, or this node's cores shared among the ranks on
@@ -280,15 +309,18 @@ fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
         Command::Check {
             job,
             set,
+            samples,
             particles,
         } => {
             configure_threads(None, world)?;
-            check::command(&job, &with_particles(set, particles), world)
+            let set = with_samples(set, samples, particles, world.is_root());
+            check::command(&job, &set, world)
         }
         Command::Run {
             job,
             out,
             set,
+            samples,
             particles,
             force,
             until,
@@ -299,7 +331,7 @@ fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             let opts = run::RunArgs {
                 job,
                 out,
-                set: with_particles(set, particles),
+                set: with_samples(set, samples, particles, world.is_root()),
                 force,
                 until,
                 walltime,

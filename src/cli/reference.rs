@@ -21,6 +21,7 @@ pub fn command(
         dt,
     };
     let loaded = signfold::physics::defaults::load(job, overrides)?;
+    super::warn_job(&loaded);
     let target = out.join(names::REFERENCE_FILE);
     if target.exists() && !force {
         anyhow::bail!(

@@ -36,6 +36,9 @@ pub fn run(args: RunArgs, world: &World) -> anyhow::Result<ExitCode> {
     let walltime = collective(args.walltime.as_deref().map(parse_walltime).transpose())?;
     let runtime = signfold::engine::memory::process_status_bytes("VmRSS").unwrap_or(0.0);
     let loaded = collective(signfold::physics::defaults::load(&args.job, &args.set))?;
+    if signfold::engine::comm::Comm::is_root(world) {
+        super::warn_job(&loaded);
+    }
     let mut setup = collective(Setup::new(&loaded))?;
     // The memory check of `check`, before anything is written (docs/method.md §3).
     let plan = collective(super::check::plan(&mut setup, world, runtime))?;
@@ -73,14 +76,14 @@ fn hms(s: f64) -> String {
 fn show(p: Progress) {
     match p {
         Progress::Started {
-            particles,
+            samples,
             draws,
             ranks,
             threads,
             abs_over_net,
             dropped,
         } => println!(
-            "signfold: {particles} particles at t = 0 on {ranks} rank(s) ({threads} threads each); ∫|W|/∫W = {abs_over_net:.4}{}\n\
+            "signfold: {samples} samples at t = 0 on {ranks} rank(s) ({threads} threads each); ∫|W|/∫W = {abs_over_net:.4}{}\n\
              signfold: {}",
             if dropped > 0 {
                 format!("; {dropped} outside domain or momentum range, not kept")
@@ -101,14 +104,14 @@ fn show(p: Progress) {
         Progress::Step {
             time_fs,
             end_fs,
-            particles,
+            samples,
             sign_ratio,
             norm,
             events_per_s,
             elapsed_s,
             left_s,
         } => println!(
-            "t {time_fs:>8.2} / {end_fs:.2} fs | particles {particles:>10} | ∫|W|/∫W {sign_ratio:>6.3} | norm {norm:.5} | events/s {events_per_s:>9.3e} | elapsed {} | left {}",
+            "t {time_fs:>8.2} / {end_fs:.2} fs | samples {samples:>10} | ∫|W|/∫W {sign_ratio:>6.3} | norm {norm:.5} | events/s {events_per_s:>9.3e} | elapsed {} | left {}",
             hms(elapsed_s),
             hms(left_s)
         ),

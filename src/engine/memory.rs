@@ -236,8 +236,8 @@ impl Forecast {
             bytes: load.runtime,
         }];
         terms.push(Term {
-            name: "particle store",
-            what: format!("{p:.3e} particles × {sp} B (x, k: 2N f64; id u64; sign i8)"),
+            name: "sample store",
+            what: format!("{p:.3e} samples × {sp} B (x, k: 2N f64; id u64; sign i8)"),
             bytes: p * sp,
         });
         // Children of one step, gathered per chunk before they are appended, and the keep
@@ -292,7 +292,7 @@ impl Forecast {
             terms.push(Term {
             name: "annihilation",
             what: format!(
-                "{p:.3e} particles × {per_particle} B + {cand:.3e} candidates × {} B + {cells:.3e} cells × {} B + {slots:.3e} hash slots × {} B",
+                "{p:.3e} samples × {per_particle} B + {cand:.3e} candidates × {} B + {cells:.3e} cells × {} B + {slots:.3e} hash slots × {} B",
                 a.per_candidate, a.per_cell, a.per_slot
             ),
                 bytes: p * per_particle
@@ -312,7 +312,7 @@ impl Forecast {
             terms.push(Term {
                 name: "MPI exchange",
                 what: format!(
-                    "{:.3e} cells × {} B + {owner_slots:.3e} owner slots × {} B; rebalancing {:.3e} particles × {} B",
+                    "{:.3e} cells × {} B + {owner_slots:.3e} owner slots × {} B; rebalancing {:.3e} samples × {} B",
                     cells,
                     a.per_cell_owner + exchange_bytes_per_cell(),
                     a.per_slot,

@@ -30,7 +30,7 @@ pub struct Pilot {
     /// Initial particles of the pilot and of the job (all ranks).
     pub sample: u64,
     pub job_initial: f64,
-    /// Job particles per pilot particle (`numerics.particles` / pilot target).
+    /// Job particles per pilot particle (`numerics.samples` / pilot target).
     pub ratio: f64,
     pub steps: u64,
     /// Count of the pilot at the start and at the end of its steps.

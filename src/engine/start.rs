@@ -36,7 +36,7 @@ pub fn initial_state(setup: &Setup, comm: &dyn Comm) -> Result<(State, InitialRe
     let s0 = counts;
     if let Some(gr) = s0.iter().position(|&v| v <= 0) {
         bail!(
-            "error group {gr} has no positive net norm at t = 0 ({} net particles): raise numerics.particles or lower numerics.groups",
+            "error group {gr} has no positive net norm at t = 0 ({} net samples): raise numerics.samples or lower numerics.groups",
             s0[gr]
         );
     }
@@ -53,7 +53,6 @@ pub fn initial_state(setup: &Setup, comm: &dyn Comm) -> Result<(State, InitialRe
         gone: Departed {
             left: vec![0; g],
             right: vec![0; g],
-            momentum: vec![0; g],
         },
         initial_count: total as u64,
         count_after_annihilation: 0,
@@ -64,7 +63,7 @@ pub fn initial_state(setup: &Setup, comm: &dyn Comm) -> Result<(State, InitialRe
 
 /// Σ|r_d| and Σr_d (fixed point) over the initial draws d ∈ [0, draws), each rank summing
 /// its contiguous share: the same integers on any rank count. With `draws` = the target
-/// (`numerics.particles`) their ratio is the ∫|W|/∫W a run reports at t = 0.
+/// (`numerics.samples`) their ratio is the ∫|W|/∫W a run reports at t = 0.
 pub fn draw_sums(w: &initial::NBodyWigner, seed: u64, draws: u64, comm: &dyn Comm) -> [i128; 2] {
     let (r, p) = (comm.rank() as u64, comm.size() as u64);
     let sums = initial::sum_draws(w, seed, draws * r / p, draws * (r + 1) / p);
@@ -83,7 +82,7 @@ pub fn sign_ratio(setup: &Setup, draws: u64, comm: &dyn Comm) -> Result<f64> {
 pub struct InitialReport {
     /// ∫|W| / ∫W estimated from the draws (particles per unit of net norm).
     pub abs_over_net: f64,
-    /// Initial draws (the target `numerics.particles`); each emits ⌊|w_d|/w₀ + U⌋ copies.
+    /// Initial draws (the target `numerics.samples`); each emits ⌊|w_d|/w₀ + U⌋ copies.
     pub draws: u64,
     pub particles: u64,
     /// Emitted particles that fell outside the domain or momentum range (not kept).

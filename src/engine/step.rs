@@ -65,7 +65,6 @@ pub fn sync_step(
     let mut t = [
         tally.absorbed_left.clone(),
         tally.absorbed_right.clone(),
-        tally.lost_momentum.clone(),
         vec![tally.events as i64, st.store.len() as i64],
     ]
     .concat();
@@ -73,10 +72,9 @@ pub fn sync_step(
     for i in 0..g {
         st.gone.left[i] += t[i];
         st.gone.right[i] += t[g + i];
-        st.gone.momentum[i] += t[2 * g + i];
     }
-    let events = t[3 * g] as u64;
-    let advanced = t[3 * g + 1] as u64;
+    let events = t[2 * g] as u64;
+    let advanced = t[2 * g + 1] as u64;
     let local_advanced = st.store.len();
     timers.add(Phase::Bookkeeping, t0);
     if !triggers(setup, st, advanced) {
@@ -104,7 +102,7 @@ pub fn sync_step(
     let t0 = Instant::now();
     let moved_words = annihilate::rebalance(&mut st.store, comm);
     timers.add_secs(
-        Phase::Regeneration,
+        Phase::Selection,
         report.selection_s + t0.elapsed().as_secs_f64(),
     );
     st.annihilations += 1;

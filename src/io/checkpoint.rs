@@ -20,7 +20,7 @@ use anyhow::{Context, Result, anyhow, bail};
 use ndarray::ArrayView1;
 use std::path::{Path, PathBuf};
 
-pub use crate::io::names::{CHECKPOINT_FORMAT, CHECKPOINT_TYPE};
+pub use crate::io::names::{CHECKPOINT_FORMAT, CHECKPOINT_TYPE, OLDEST_CHECKPOINT_FORMAT};
 
 pub fn particle_path(dir: &Path, step: u64) -> PathBuf {
     dir.join(format!("{}{step:010}{}", cp::FILE_PREFIX, cp::FILE_SUFFIX))
@@ -350,7 +350,6 @@ fn write_state(
         (cp::S0, &st.s0),
         (cp::ABSORBED_LEFT, &st.gone.left),
         (cp::ABSORBED_RIGHT, &st.gone.right),
-        (cp::LOST_MOMENTUM, &st.gone.momentum),
     ] {
         let ds = g.new_dataset::<i64>().shape([v.len()]).create(name)?;
         ds.write_raw(v)?;
@@ -439,7 +438,7 @@ pub fn write(
     let meta = (|| -> hdf5::Result<()> {
         write_state(&f, st, job, time, numerics)?;
         f.new_attr::<u64>()
-            .create(cp::ATTR_PARTICLES)?
+            .create(cp::ATTR_SAMPLES)?
             .write_scalar(&total)?;
         f.new_attr::<u64>()
             .create(cp::ATTR_COORDINATES)?
@@ -447,7 +446,7 @@ pub fn write(
         f.new_attr::<u64>()
             .create(cp::ATTR_CHECKSUM)?
             .write_scalar(&checksum)?;
-        let g = f.create_group(cp::PARTICLES_GROUP)?;
+        let g = f.create_group(cp::SAMPLES_GROUP)?;
         let xs = g
             .new_dataset::<f64>()
             .shape([(total * n) as usize])
@@ -480,7 +479,7 @@ pub fn write(
         }
         Ok(())
     })();
-    stage(data, "particle data").map_err(fail)?;
+    stage(data, "sample data").map_err(fail)?;
     drop((xs, ks, ids, signs));
     stage(f.flush(), "flush").map_err(fail)?;
     // The completeness marker goes last.
@@ -548,8 +547,19 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
             .and_then(|a| a.read_scalar())
             .map_err(|e| anyhow!("{shown}: attribute {name}: {e}"))
     };
+    // Format 1 named the sample count and group `particles` and kept a `lost_momentum`
+    // tally (always zero, not read).
+    let version: u32 = f
+        .attr(names::ATTR_FORMAT_VERSION)
+        .and_then(|a| a.read_scalar())
+        .unwrap_or(CHECKPOINT_FORMAT);
+    let (count_attr, group) = if version < 2 {
+        (cp::ATTR_SAMPLES_V1, cp::SAMPLES_GROUP_V1)
+    } else {
+        (cp::ATTR_SAMPLES, cp::SAMPLES_GROUP)
+    };
     let (total, n, checksum) = (
-        a(cp::ATTR_PARTICLES)?,
+        a(count_attr)?,
         a(cp::ATTR_COORDINATES)?,
         a(cp::ATTR_CHECKSUM)?,
     );
@@ -559,12 +569,7 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
     let numerics_hash = read_str_attr(&f, cp::ATTR_NUMERICS_HASH).ok();
     let s = f.group(cp::STATE_GROUP)?;
     let v = |name: &str| -> Result<Vec<i64>> { Ok(s.dataset(name)?.read_raw::<i64>()?) };
-    let (s0, left, right, momentum) = (
-        v(cp::S0)?,
-        v(cp::ABSORBED_LEFT)?,
-        v(cp::ABSORBED_RIGHT)?,
-        v(cp::LOST_MOMENTUM)?,
-    );
+    let (s0, left, right) = (v(cp::S0)?, v(cp::ABSORBED_LEFT)?, v(cp::ABSORBED_RIGHT)?);
     let mut job = job::from_text(
         &text,
         &format!("job stored in {shown}"),
@@ -577,7 +582,7 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
     let (from, to) = ((total * r / p) as usize, (total * (r + 1) / p) as usize);
     let nn = n as usize;
     let local = (|| -> Result<Store> {
-        let g = f.group(cp::PARTICLES_GROUP)?;
+        let g = f.group(group)?;
         let mut store = Store::new(nn);
         if to > from {
             let rd = |name: &str, a: usize, b: usize| -> Result<Vec<f64>> {
@@ -603,13 +608,13 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
     })();
     if comm.any(local.is_err()) {
         return Err(local.err().map_or_else(
-            || anyhow!("{shown}: particle data unreadable on another rank"),
-            |e| anyhow!("{shown}: particle data unreadable ({e})"),
+            || anyhow!("{shown}: sample data unreadable on another rank"),
+            |e| anyhow!("{shown}: sample data unreadable ({e})"),
         ));
     }
     let store = local.expect("checked above");
     if global_checksum(&store, comm) != checksum {
-        bail!("{shown}: checksum mismatch (the particle data are damaged)");
+        bail!("{shown}: checksum mismatch (the sample data are damaged)");
     }
     let results = if comm.is_root() {
         ResultFile::read(&results_path(dir, step))?
@@ -620,11 +625,7 @@ fn read_one(dir: &Path, step: u64, comm: &dyn Comm) -> Result<Restored> {
         step: a(cp::ATTR_STEP)?,
         store,
         s0,
-        gone: Departed {
-            left,
-            right,
-            momentum,
-        },
+        gone: Departed { left, right },
         initial_count: a(cp::ATTR_INITIAL_COUNT)?,
         annihilations: a(cp::ATTR_ANNIHILATIONS)?,
         // Absent from checkpoints written before the attribute existed: the trigger then
@@ -653,9 +654,9 @@ fn check_version(path: &Path) -> Result<()> {
     else {
         return Ok(());
     };
-    if v != CHECKPOINT_FORMAT {
+    if !(OLDEST_CHECKPOINT_FORMAT..=CHECKPOINT_FORMAT).contains(&v) {
         bail!(
-            "{}: checkpoint format version {v} is not supported by this program (it reads version {CHECKPOINT_FORMAT}); \
+            "{}: checkpoint format version {v} is not supported by this program (it reads versions {OLDEST_CHECKPOINT_FORMAT} to {CHECKPOINT_FORMAT}); \
              resume it with the program version that wrote it",
             path.display()
         );

@@ -153,15 +153,22 @@ pub fn inspect(file: &Path) -> Result<String> {
         );
         let rows: Vec<usize> = entries
             .iter()
-            .filter(|e| e.path.starts_with("/particles/"))
+            .filter(|e| {
+                [
+                    names::checkpoint::SAMPLES_GROUP,
+                    names::checkpoint::SAMPLES_GROUP_V1,
+                ]
+                .iter()
+                .any(|g| e.path.starts_with(&format!("/{g}/")))
+            })
             .map(|e| e.shape.first().copied().unwrap_or(1))
             .collect();
         let stored = match rows.as_slice() {
             [] => "none stored".to_string(),
             [first, rest @ ..] if rest.iter().all(|r| r == first) => format!("{first} stored"),
-            _ => format!("datasets under /particles disagree in length: {rows:?}"),
+            _ => format!("datasets of the samples disagree in length: {rows:?}"),
         };
-        line(&mut s, names::PARTICLES.name, &stored);
+        line(&mut s, names::SAMPLES.name, &stored);
     } else {
         let times = read_1d("time");
         match &times {
@@ -217,13 +224,19 @@ pub fn inspect(file: &Path) -> Result<String> {
             }
         };
         line(&mut s, "complete", &state);
-        match read_1d(names::PARTICLES.name) {
+        // Format version 1 named the sample counts `particles`.
+        let old = names::RENAMED_DATASETS[0].0;
+        match read_1d(names::SAMPLES.name).or_else(|| read_1d(old)) {
             Some(p) if !p.is_empty() => line(
                 &mut s,
-                names::PARTICLES.name,
+                names::SAMPLES.name,
                 &format!("first {}, last {}", p[0], p[p.len() - 1]),
             ),
-            _ => line(&mut s, names::PARTICLES.name, "- (no `particles` dataset)"),
+            _ => line(
+                &mut s,
+                names::SAMPLES.name,
+                &format!("- (no `{}` dataset)", names::SAMPLES.name),
+            ),
         }
     }
     for (axis, units) in [("x", "nm"), ("k", "1/nm")] {
@@ -318,6 +331,20 @@ fn is_series(path: &str) -> bool {
 fn walk(g: &hdf5::Group, prefix: &str, out: &mut Vec<Entry>) -> hdf5::Result<()> {
     for name in g.member_names()? {
         let path = format!("{prefix}/{name}");
+        // The old name of a renamed dataset: a soft link, shown as one.
+        if let Some((_, new)) = names::RENAMED_DATASETS
+            .iter()
+            .find(|(old, new)| prefix.is_empty() && *old == name && g.dataset(new).is_ok())
+            && let Ok(ds) = g.dataset(&name)
+        {
+            out.push(Entry {
+                path,
+                shape: ds.shape(),
+                dtype: format!("soft link to /{new} (its name before format version 2)"),
+                units: String::new(),
+            });
+            continue;
+        }
         if let Ok(ds) = g.dataset(&name) {
             let dtype = ds
                 .dtype()

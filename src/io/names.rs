@@ -14,9 +14,16 @@ const fn ds(name: &'static str, units: &'static str) -> Dataset {
 }
 
 /// Version of the result-file layout (observables.h5, reference.h5); checked on reading.
-pub const FORMAT_VERSION: u32 = 1;
-/// Version of the checkpoint layout; checked on resume.
-pub const CHECKPOINT_FORMAT: u32 = 1;
+/// Version 2 renamed the sample counts (`particles*` → `samples*`, with soft links under the
+/// old names), the phase `regeneration` → `selection` and dropped `lost_norm`.
+pub const FORMAT_VERSION: u32 = 2;
+/// The oldest result-file layout still read (its names are read as their new ones).
+pub const OLDEST_FORMAT_VERSION: u32 = 1;
+/// Version of the checkpoint layout; checked on resume. Version 2 renamed the attribute and
+/// group `particles` → `samples` and dropped the `lost_momentum` tally.
+pub const CHECKPOINT_FORMAT: u32 = 2;
+/// The oldest checkpoint layout still resumed.
+pub const OLDEST_CHECKPOINT_FORMAT: u32 = 1;
 /// File-type words (root attribute [`ATTR_FILE_TYPE`]).
 pub const OBSERVABLES_TYPE: &str = "signfold-observables";
 pub const REFERENCE_TYPE: &str = "signfold-reference";
@@ -73,19 +80,18 @@ pub fn frame_axes(name: &str) -> Option<&'static [Dataset]> {
 }
 
 /// Observables with one value per output time.
-const SCALARS: [Dataset; 13] = [
+const SCALARS: [Dataset; 12] = [
     NORM,
     ABSORBED_LEFT,
     ABSORBED_RIGHT,
     NORM_RIGHT,
-    LOST_NORM,
     ENERGY,
     MEAN_X,
     MEAN_K,
     MEAN_FORCE,
-    PARTICLES,
-    PARTICLES_POSITIVE,
-    PARTICLES_NEGATIVE,
+    SAMPLES,
+    SAMPLES_POSITIVE,
+    SAMPLES_NEGATIVE,
     TIME,
 ];
 
@@ -99,15 +105,28 @@ pub const NORM: Dataset = ds("norm", "1");
 pub const ABSORBED_LEFT: Dataset = ds("absorbed_left", "1");
 pub const ABSORBED_RIGHT: Dataset = ds("absorbed_right", "1");
 pub const NORM_RIGHT: Dataset = ds("norm_right", "1");
-pub const LOST_NORM: Dataset = ds("lost_norm", "1");
 pub const ENERGY: Dataset = ds("energy", "eV");
 pub const MEAN_X: Dataset = ds("mean_x", "nm");
 pub const MEAN_K: Dataset = ds("mean_k", "1/nm");
 pub const MEAN_FORCE: Dataset = ds("mean_force", "eV/nm");
 /// Live Monte Carlo samples per output: all, positive, negative.
-pub const PARTICLES: Dataset = ds("particles", "1");
-pub const PARTICLES_POSITIVE: Dataset = ds("particles_positive", "1");
-pub const PARTICLES_NEGATIVE: Dataset = ds("particles_negative", "1");
+pub const SAMPLES: Dataset = ds("samples", "1");
+pub const SAMPLES_POSITIVE: Dataset = ds("samples_positive", "1");
+pub const SAMPLES_NEGATIVE: Dataset = ds("samples_negative", "1");
+
+/// Datasets renamed in format version 2 (old name, new name). Writers add an HDF5 soft
+/// link under the old name for one format version; readers of version-1 files read the
+/// old name as the new one.
+pub const RENAMED_DATASETS: [(&str, &str); 3] = [
+    ("particles", SAMPLES.name),
+    ("particles_positive", SAMPLES_POSITIVE.name),
+    ("particles_negative", SAMPLES_NEGATIVE.name),
+];
+/// Datasets of format version 1 that version 2 dropped (an identically zero tally since
+/// wavevectors are unbounded, docs/method.md §2.5): skipped when a version-1 file is read.
+pub const DROPPED_DATASETS: [&str; 2] = ["lost_norm", "lost_norm_error"];
+/// `/run` datasets renamed in format version 2 (old name, new name), read as the new one.
+pub const RENAMED_RUN: [(&str, &str); 1] = [("seconds_regeneration", "seconds_selection")];
 
 /// The binned observables compared by relative L1 distance.
 pub const DENSITY_LIKE: [Dataset; 4] = [DENSITY, PAIR_DENSITY, WIGNER, MOMENTUM_DENSITY];
@@ -178,7 +197,10 @@ pub mod checkpoint {
     pub const ATTR_INITIAL_COUNT: &str = "initial_count";
     pub const ATTR_ANNIHILATIONS: &str = "annihilations";
     pub const ATTR_COUNT_AFTER_ANNIHILATION: &str = "count_after_annihilation";
-    pub const ATTR_PARTICLES: &str = "particles";
+    /// Live samples in the checkpoint (all ranks).
+    pub const ATTR_SAMPLES: &str = "samples";
+    /// [`ATTR_SAMPLES`] in checkpoint format 1.
+    pub const ATTR_SAMPLES_V1: &str = "particles";
     pub const ATTR_COORDINATES: &str = "coordinates";
     pub const ATTR_CHECKSUM: &str = "checksum";
     /// Hashes of the kernel tables and derived numerics the checkpoint was written with.
@@ -189,8 +211,10 @@ pub mod checkpoint {
     pub const S0: &str = "s0";
     pub const ABSORBED_LEFT: &str = "absorbed_left";
     pub const ABSORBED_RIGHT: &str = "absorbed_right";
-    pub const LOST_MOMENTUM: &str = "lost_momentum";
-    pub const PARTICLES_GROUP: &str = "particles";
+    /// The samples' coordinates, identities and signs.
+    pub const SAMPLES_GROUP: &str = "samples";
+    /// [`SAMPLES_GROUP`] in checkpoint format 1.
+    pub const SAMPLES_GROUP_V1: &str = "particles";
     pub const X: &str = "x";
     pub const K: &str = "k";
     pub const ID: &str = "id";

@@ -12,7 +12,9 @@ use std::path::Path;
 
 pub use crate::io::attrs::{read_str_attr, write_str_attr};
 use crate::io::names::{self, Dataset};
-pub use crate::io::names::{FORMAT_VERSION, OBSERVABLES_TYPE, REFERENCE_TYPE};
+pub use crate::io::names::{
+    FORMAT_VERSION, OBSERVABLES_TYPE, OLDEST_FORMAT_VERSION, REFERENCE_TYPE,
+};
 use crate::physics::estimators::{Estimate, Frame};
 
 /// One time series: `data` holds nt frames of `frame_shape` each, row-major.
@@ -40,6 +42,10 @@ impl Series {
 #[derive(Clone, Debug, Default, PartialEq)]
 pub struct ResultFile {
     pub file_type: String,
+    /// The layout version the file was written with ([`FORMAT_VERSION`] for a new one;
+    /// files of older versions are read with their names updated, and written back in the
+    /// current layout).
+    pub format_version: u32,
     pub job_text: String,
     pub program_version: String,
     /// Bin centres in x, nm.
@@ -58,6 +64,7 @@ impl ResultFile {
     pub fn new(file_type: &str, job_text: &str, x: Vec<f64>, k: Vec<f64>) -> Self {
         ResultFile {
             file_type: file_type.to_string(),
+            format_version: FORMAT_VERSION,
             job_text: job_text.to_string(),
             program_version: env!("CARGO_PKG_VERSION").to_string(),
             x,
@@ -111,7 +118,6 @@ impl ResultFile {
             (names::ABSORBED_LEFT, &f.absorbed_left),
             (names::ABSORBED_RIGHT, &f.absorbed_right),
             (names::NORM_RIGHT, &f.norm_right),
-            (names::LOST_NORM, &f.lost_norm),
             (names::ENERGY, &f.energy),
             (names::MEAN_X, &f.mean_x),
             (names::MEAN_K, &f.mean_k),
@@ -119,17 +125,9 @@ impl ResultFile {
         ] {
             self.put_estimate(d, &[], e);
         }
-        self.put(names::PARTICLES, &[], &[f.particles as f64]);
-        self.put(
-            names::PARTICLES_POSITIVE,
-            &[],
-            &[f.particles_positive as f64],
-        );
-        self.put(
-            names::PARTICLES_NEGATIVE,
-            &[],
-            &[f.particles_negative as f64],
-        );
+        self.put(names::SAMPLES, &[], &[f.samples as f64]);
+        self.put(names::SAMPLES_POSITIVE, &[], &[f.samples_positive as f64]);
+        self.put(names::SAMPLES_NEGATIVE, &[], &[f.samples_negative as f64]);
     }
 
     /// Output times, fs.
@@ -197,6 +195,12 @@ impl ResultFile {
             }
         }
         crate::io::axes::write_axes(&f, &self.x)?;
+        // Old names of renamed datasets, as soft links (after the axes: a link is no dataset of its own), for one format version.
+        for (old, new) in names::RENAMED_DATASETS {
+            if self.series.contains_key(new) && !self.series.contains_key(old) {
+                f.link_soft(new, old)?;
+            }
+        }
         f.flush()?;
         Ok(())
     }
@@ -227,13 +231,14 @@ impl ResultFile {
             .attr(names::ATTR_FORMAT_VERSION)
             .and_then(|a| a.read_scalar())
             .map_err(|_| anyhow!("{shown}: no format_version attribute"))?;
-        if version != FORMAT_VERSION {
+        if !(OLDEST_FORMAT_VERSION..=FORMAT_VERSION).contains(&version) {
             bail!(
-                "{shown}: format version {version} is not supported (this program reads {FORMAT_VERSION})"
+                "{shown}: format version {version} is not supported (this program reads {OLDEST_FORMAT_VERSION} to {FORMAT_VERSION})"
             );
         }
         let mut out = ResultFile {
             file_type,
+            format_version: version,
             job_text: read_str_attr(&f, names::ATTR_JOB).unwrap_or_default(),
             program_version: read_str_attr(&f, names::ATTR_PROGRAM_VERSION).unwrap_or_default(),
             ..Default::default()
@@ -257,7 +262,19 @@ impl ResultFile {
             {
                 continue;
             }
-            let ds = match f.dataset(&name) {
+            // A soft link under an old name (read through its target), a dropped tally, or
+            // (format version 1) an old name read as the new one.
+            let stored = name.clone();
+            let renamed = names::RENAMED_DATASETS.iter().find(|(old, _)| *old == name);
+            let name = match renamed {
+                Some(_) if version >= 2 => continue,
+                Some((_, new)) => new.to_string(),
+                None if version < 2 && names::DROPPED_DATASETS.contains(&name.as_str()) => {
+                    continue;
+                }
+                None => name,
+            };
+            let ds = match f.dataset(&stored) {
                 Ok(d) => d,
                 Err(_) => continue,
             };
@@ -286,6 +303,10 @@ impl ResultFile {
                 }
                 if let Ok(ds) = g.dataset(&name) {
                     let units = read_str_attr(&ds, names::ATTR_UNITS).unwrap_or_default();
+                    let name = names::RENAMED_RUN
+                        .iter()
+                        .find(|(old, _)| *old == name)
+                        .map_or(name, |(_, new)| new.to_string());
                     out.run.insert(name, (units, ds.read_raw::<f64>()?));
                 }
             }

@@ -8,7 +8,7 @@ use crate::physics::numerics::Setup;
 use crate::physics::orbitals::Gaussian;
 use crate::physics::potential::OneBody;
 use crate::physics::units;
-use anyhow::{Result, anyhow};
+use anyhow::Result;
 use std::path::Path;
 
 /// Largest fraction of the kernel's weight allowed beyond the momentum cap (the level at
@@ -112,7 +112,12 @@ pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
         }
         loaded.text = text;
     }
-    job::validate(&loaded.job).map_err(|e| anyhow!("{}: {e}", loaded.origin))
+    job::validate(&loaded.job).map_err(|error| {
+        anyhow::Error::new(job::JobFileError {
+            origin: loaded.origin.clone(),
+            error,
+        })
+    })
 }
 
 /// The largest energy the potentials and the pair term can hand a particle within
@@ -137,7 +142,7 @@ fn energy_scale(loaded: &LoadedJob, reach: f64) -> f64 {
             }
             PotentialTerm::Table { .. } => OneBody::from_job(
                 std::slice::from_ref(p),
-                width / j.domain.cells as f64,
+                width / j.domain.mesh_cells as f64,
                 units::mass_from_electron_masses(j.particles.mass),
                 &loaded.base_dir,
             )

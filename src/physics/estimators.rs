@@ -247,7 +247,6 @@ fn estimate(
 pub struct Departed {
     pub left: Vec<i64>,
     pub right: Vec<i64>,
-    pub momentum: Vec<i64>,
 }
 
 /// An estimate per bin (or one value) and its standard error over the B groups.
@@ -274,16 +273,14 @@ pub struct Frame {
     pub absorbed_right: Estimate,
     /// `absorbed_right` plus the one-body norm at x > 0 (the transmitted norm for N = 1).
     pub norm_right: Estimate,
-    /// Net sign of particles removed beyond the momentum cap.
-    pub lost_norm: Estimate,
     pub energy: Estimate,
     pub mean_x: Estimate,
     pub mean_k: Estimate,
     pub mean_force: Estimate,
-    /// Live particles: all, positive, negative.
-    pub particles: u64,
-    pub particles_positive: u64,
-    pub particles_negative: u64,
+    /// Live Monte Carlo samples: all, positive, negative.
+    pub samples: u64,
+    pub samples_positive: u64,
+    pub samples_negative: u64,
 }
 
 impl Counts {
@@ -335,14 +332,13 @@ impl Counts {
                         .sum::<f64>()
                         / n_body
             }),
-            lost_norm: put(1, 1.0, &|gr, _| gone.momentum[gr] as f64),
             energy: put(1, 1.0 / E_SCALE, &|gr, _| c.energy[gr] as f64),
             mean_x: put(1, per, &|gr, _| c.moments[3 * gr] as f64),
             mean_k: put(1, per, &|gr, _| c.moments[3 * gr + 1] as f64),
             mean_force: put(1, per, &|gr, _| c.moments[3 * gr + 2] as f64),
-            particles: c.particles(),
-            particles_positive: c.positive as u64,
-            particles_negative: c.negative as u64,
+            samples: c.particles(),
+            samples_positive: c.positive as u64,
+            samples_negative: c.negative as u64,
         }
     }
 }

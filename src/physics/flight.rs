@@ -26,9 +26,6 @@ use rayon::prelude::*;
 pub struct Tally {
     pub absorbed_left: Vec<i64>,
     pub absorbed_right: Vec<i64>,
-    /// Signed count removed because |k| exceeded k_max. Always 0 since wavevectors became
-    /// unbounded (docs/method.md §2.5): kept for the `lost_norm` dataset and checkpoints.
-    pub lost_momentum: Vec<i64>,
     /// Accepted generation events and thinning candidates.
     pub events: u64,
     pub candidates: u64,
@@ -39,7 +36,6 @@ impl Tally {
         Tally {
             absorbed_left: vec![0; groups],
             absorbed_right: vec![0; groups],
-            lost_momentum: vec![0; groups],
             events: 0,
             candidates: 0,
         }
@@ -49,9 +45,6 @@ impl Tally {
             *a += b;
         }
         for (a, b) in self.absorbed_right.iter_mut().zip(&o.absorbed_right) {
-            *a += b;
-        }
-        for (a, b) in self.lost_momentum.iter_mut().zip(&o.lost_momentum) {
             *a += b;
         }
         self.events += o.events;

@@ -118,12 +118,12 @@ pub fn fixed_sizes(
     let lc = job.numerics.coherence_length;
     let cap = (job.domain.k_max * lc / std::f64::consts::PI).floor();
     let width = 2.0 * cap + 1.0;
-    let mesh_dx = (job.domain.x_max - job.domain.x_min) / job.domain.cells as f64;
+    let mesh_dx = (job.domain.x_max - job.domain.x_min) / job.domain.mesh_cells as f64;
     let fft = (8.0 * cap + 8.0).max((4.0 * lc / mesh_dx).ceil()).max(64.0);
     let fft = 2f64.powf(fft.log2().ceil());
     // Per point: the row while building, the stored row, the alias sampler (~24 B per entry).
     let table = |points: f64| points * width * 40.0 + threads.max(1) as f64 * fft * 32.0;
-    let cells = job.domain.cells as f64;
+    let cells = job.domain.mesh_cells as f64;
     let mut v = vec![
         (
             "estimators",
@@ -143,8 +143,8 @@ pub fn fixed_sizes(
         ),
     ];
     let kernel_keys = format!(
-        "domain.cells = {}, numerics.coherence_length = {lc}, domain.k_max = {} (momentum cap K = {cap}, FFT of {fft} points)",
-        job.domain.cells, job.domain.k_max
+        "domain.mesh_cells = {}, numerics.coherence_length = {lc}, domain.k_max = {} (momentum cap K = {cap}, FFT of {fft} points)",
+        job.domain.mesh_cells, job.domain.k_max
     );
     if one_body_kernel {
         v.push(("one-body kernel table", kernel_keys.clone(), table(cells)));
@@ -163,11 +163,11 @@ pub fn fixed_sizes(
 /// Refuse, before anything is allocated, a job whose fixed structures would not fit in
 /// half of this machine's memory, or whose error groups would be nearly empty.
 pub fn check_sizes(job: &Job, one_body_kernel: bool, pair: bool, threads: usize) -> Result<()> {
-    let (p, g) = (job.numerics.particles, job.numerics.groups as u64);
+    let (p, g) = (job.numerics.samples, job.numerics.groups as u64);
     if p < MIN_PARTICLES_PER_GROUP * g {
         return Err(anyhow!(
-            "numerics.particles = {p} is below {MIN_PARTICLES_PER_GROUP} per error group (numerics.groups = {g}): \
-             groups without particles have no net norm; raise numerics.particles or lower numerics.groups"
+            "numerics.samples = {p} is below {MIN_PARTICLES_PER_GROUP} per error group (numerics.groups = {g}): \
+             groups without particles have no net norm; raise numerics.samples or lower numerics.groups"
         ));
     }
     let budget = 0.5 * machine_memory();
@@ -196,7 +196,7 @@ impl Setup {
         let mass = units::mass_from_electron_masses(job.particles.mass);
         let (lo, hi) = (job.domain.x_min, job.domain.x_max);
         let width = hi - lo;
-        let mesh_dx = width / job.domain.cells as f64;
+        let mesh_dx = width / job.domain.mesh_cells as f64;
         let one_body = OneBody::from_job(&job.potentials, mesh_dx, mass, &loaded.base_dir)
             .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
         let pair = PairPotential::from_job(&job.pair);
@@ -226,14 +226,23 @@ impl Setup {
         let table1 = one_body.has_kernel().then(|| {
             let ob = one_body.clone();
             let u = move |x: f64| ob.kernel_part(x);
-            KernelTable::build(&u, lo, mesh_dx, job.domain.cells, lc, rolloff, period, cap)
+            KernelTable::build(
+                &u,
+                lo,
+                mesh_dx,
+                job.domain.mesh_cells,
+                lc,
+                rolloff,
+                period,
+                cap,
+            )
         });
         let table2 = (n >= 2).then_some(()).and(pair).map(|p| {
             // Periodic: minimal-image separations lie in [−L/2, L/2]; otherwise [−L, L].
             let (r_lo, points, period2) = if job.domain.boundary == Boundary::Periodic {
-                (-0.5 * width, job.domain.cells, period)
+                (-0.5 * width, job.domain.mesh_cells, period)
             } else {
-                (-width, 2 * job.domain.cells, lc.max(width + 0.5 * lc))
+                (-width, 2 * job.domain.mesh_cells, lc.max(width + 0.5 * lc))
             };
             let u = move |r: f64| p.value(r);
             let cap2 = cap_of(period2);
@@ -281,17 +290,17 @@ impl Setup {
             k_bins: grid::k_bins(&job),
             cell_x,
             cell_k,
-            cells: job.annihilation.cells,
+            cells: job.annihilation.coordinates,
             resolution: job.annihilation.resolution,
             merge_exchange: job.annihilation.merge_exchange && job.particles.statistics.identical(),
             groups: job.numerics.groups,
             seed: job.numerics.seed,
-            target: job.numerics.particles,
+            target: job.numerics.samples,
             trigger: job.annihilation.trigger,
             budget: job
                 .annihilation
                 .budget
-                .unwrap_or(DEFAULT_BUDGET_FACTOR * job.numerics.particles),
+                .unwrap_or(DEFAULT_BUDGET_FACTOR * job.numerics.samples),
             memory_limit,
             text: loaded.text.clone(),
             job,

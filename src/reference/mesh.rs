@@ -128,7 +128,7 @@ pub fn choose_axis(job: &Job, points: Option<usize>) -> Result<Axis> {
     };
     // Resolve the potential's features: two points per barrier edge (its 12–88 % rise
     // length, default two mesh cells) and four per Gaussian width.
-    let mesh_dx = len / d.cells as f64;
+    let mesh_dx = len / d.mesh_cells as f64;
     let feature = job
         .potentials
         .iter()

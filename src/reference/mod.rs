@@ -133,7 +133,7 @@ fn particles_ok(loaded: &LoadedJob) -> Result<usize> {
 fn potentials(loaded: &LoadedJob) -> Result<(OneBody, Option<PairPotential>)> {
     let job = &loaded.job;
     let mass = units::mass_from_electron_masses(job.particles.mass);
-    let mesh_dx = (job.domain.x_max - job.domain.x_min) / job.domain.cells as f64;
+    let mesh_dx = (job.domain.x_max - job.domain.x_min) / job.domain.mesh_cells as f64;
     let one = OneBody::from_job(&job.potentials, mesh_dx, mass, &loaded.base_dir)?;
     Ok((one, PairPotential::from_job(&job.pair)))
 }

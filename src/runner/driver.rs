@@ -69,7 +69,7 @@ pub fn run(
     timers.add(Phase::Initial, t0);
     if root {
         progress(Progress::Started {
-            particles: init.particles,
+            samples: init.particles,
             draws: init.draws,
             ranks: comm.size(),
             threads: rayon::current_num_threads(),
@@ -357,7 +357,7 @@ fn drive(
             let mut n = [st.store.len() as i64];
             comm.sum_i64(&mut n);
             bail!(
-                "the particle count ({} on all ranks, {} here, ×{growth:.3} in the last step) would take this rank to \
+                "the sample count ({} on all ranks, {} here, ×{growth:.3} in the last step) would take this rank to \
                  {:.1} MiB ({:.1} MiB resident now + {per_particle:.0} B per new particle), past the memory cap of \
                  {:.1} MiB per rank (numerics.memory_limit_mib, or the node's available memory shared by its ranks) \
                  at t = {} fs: the sign problem outgrew annihilation; lower annihilation.budget, use more ranks, or \
@@ -433,14 +433,11 @@ fn drive(
                     .copied()
                     .unwrap_or(f64::NAN)
             };
-            let (pos, neg) = (
-                last(names::PARTICLES_POSITIVE),
-                last(names::PARTICLES_NEGATIVE),
-            );
+            let (pos, neg) = (last(names::SAMPLES_POSITIVE), last(names::SAMPLES_NEGATIVE));
             progress(Progress::Step {
                 time_fs: st.step as f64 * setup.dt,
                 end_fs: setup.steps as f64 * setup.dt,
-                particles: count,
+                samples: count,
                 sign_ratio: (pos + neg) / (pos - neg).abs(),
                 norm,
                 events_per_s: events as f64 / el.max(1e-9),

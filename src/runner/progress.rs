@@ -15,16 +15,16 @@ pub enum StopReason {
 /// One progress event.
 #[derive(Clone, Debug, PartialEq)]
 pub enum Progress {
-    /// The initial particles are drawn.
+    /// The initial samples are drawn.
     Started {
-        particles: u64,
-        /// Initial draws = the target count `numerics.particles`.
+        samples: u64,
+        /// Initial draws = the target count `numerics.samples`.
         draws: u64,
         ranks: usize,
         threads: usize,
         /// ∫|W|/∫W estimated from the draws.
         abs_over_net: f64,
-        /// Emitted particles outside the domain or momentum range (not kept).
+        /// Emitted samples outside the domain or momentum range (not kept).
         dropped: u64,
     },
     /// A checkpoint was read back.
@@ -39,7 +39,7 @@ pub enum Progress {
         time_fs: f64,
         end_fs: f64,
         /// Live samples on all ranks (after this step's annihilation, if any).
-        particles: u64,
+        samples: u64,
         /// ∫|W|/∫W: samples per unit of net sign, at the last output.
         sign_ratio: f64,
         norm: f64,

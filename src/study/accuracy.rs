@@ -380,7 +380,7 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<Vec<PathBu
                     "--out".into(),
                     dir.display().to_string(),
                     "--force".into(),
-                    "--particles".into(),
+                    "--samples".into(),
                     n.to_string(),
                     "--set".into(),
                     format!("numerics.coherence_length={}", setting.coherence_length),
@@ -401,7 +401,7 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<Vec<PathBu
                 };
                 let peak_particles = mc
                     .series
-                    .get(names::PARTICLES.name)
+                    .get(names::SAMPLES.name)
                     .map_or(f64::NAN, |s| s.data.iter().cloned().fold(0.0, f64::max));
                 let row = Row {
                     job: job.to_string(),
@@ -524,7 +524,9 @@ fn fits(rows: &[Row]) -> Vec<Fit> {
 #[derive(serde::Serialize)]
 struct RowRecord<'a> {
     job: &'a str,
-    particles: u64,
+    /// Initial Monte Carlo samples (`numerics.samples`; column `particles` before format
+    /// version 2).
+    samples: u64,
     coherence_length: f64,
     bins: usize,
     bin_width_nm: f64,
@@ -545,7 +547,7 @@ struct RowRecord<'a> {
     #[serde(rename = "pair_expected_noise_L1")]
     pair_expected_noise_l1: Option<f64>,
     transmitted_norm_mc_error: Option<f64>,
-    peak_particles: f64,
+    peak_samples: f64,
 }
 
 /// One row of `accuracy-fit.csv`.
@@ -575,7 +577,7 @@ fn to_csv<T: serde::Serialize>(records: impl IntoIterator<Item = T>) -> Result<S
 fn rows_csv(rows: &[Row]) -> Result<String> {
     to_csv(rows.iter().map(|r| RowRecord {
         job: &r.job,
-        particles: r.particles,
+        samples: r.particles,
         coherence_length: r.coherence_length,
         bins: r.bins,
         bin_width_nm: r.bin_width,
@@ -589,7 +591,7 @@ fn rows_csv(rows: &[Row]) -> Result<String> {
         density_l1_time_fs: r.density.time,
         pair_expected_noise_l1: r.pair.map(|p| p.expected_noise),
         transmitted_norm_mc_error: r.transmitted_mc.map(|t| t.1),
-        peak_particles: r.peak_particles,
+        peak_samples: r.peak_particles,
     }))
 }
 
@@ -686,7 +688,7 @@ fn panel(area: &Area, job: &str, rows: &[Row], fits: &[Fit]) -> Result<()> {
         .configure_mesh()
         .light_line_style(RGBColor(235, 235, 235))
         .bold_line_style(RGBColor(215, 215, 215))
-        .x_desc("initial particles N")
+        .x_desc("initial samples N")
         .y_desc("relative L1 vs reference")
         .axis_desc_style((FONT_NAME, LABEL_PX))
         .label_style((FONT_NAME, TICK_PX))
@@ -789,7 +791,7 @@ mod tests {
             time: 35.0,
             expected_noise: 0.015,
         };
-        let settings = "annihilation.cells=\"relative\", numerics.rolloff=10";
+        let settings = "annihilation.coordinates=\"relative\", numerics.rolloff=10";
         let row = Row {
             job: "fermion-pair".into(),
             setting: 0,
@@ -817,7 +819,9 @@ mod tests {
         assert_eq!(col("settings"), settings);
         assert_eq!(col("pair_density_L1"), "");
         assert_eq!(col("transmitted_norm_mc").parse::<f64>().unwrap(), 0.5);
-        assert!(text.contains("\"annihilation.cells=\"\"relative\"\", numerics.rolloff=10\""));
+        assert!(
+            text.contains("\"annihilation.coordinates=\"\"relative\"\", numerics.rolloff=10\"")
+        );
     }
 
     #[test]

@@ -32,7 +32,7 @@ pub fn physics_key(loaded: &LoadedJob) -> Result<String> {
     let job = &loaded.job;
     let d = &job.domain;
     let mass = units::mass_from_electron_masses(job.particles.mass);
-    let mesh_dx = (d.x_max - d.x_min) / d.cells as f64;
+    let mesh_dx = (d.x_max - d.x_min) / d.mesh_cells as f64;
     // Resolved: default barrier smoothing in nm, table files as their numbers.
     let one = OneBody::from_job(&job.potentials, mesh_dx, mass, &loaded.base_dir)?;
     let mut s = String::new();
@@ -206,7 +206,7 @@ mod tests {
         }
         for set in [
             "numerics.seed=7",
-            "numerics.particles=100000",
+            "numerics.samples=100000",
             "numerics.coherence_length=90.0",
             "annihilation.cell_x=1.0",
         ] {

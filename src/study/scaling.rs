@@ -29,6 +29,9 @@ pub enum Mode {
     /// 1 rank × 1 thread, 1 rank × 2 threads, 2 ranks × 1 thread.
     Threads,
     /// Strong and weak.
+    StrongWeak,
+    /// The old spelling of `strong-weak` (format version 1), read with a warning.
+    #[value(hide = true)]
     Both,
     /// Strong, weak and threads.
     All,
@@ -40,7 +43,7 @@ impl Mode {
             Mode::Strong => vec![Series::Strong],
             Mode::Weak => vec![Series::Weak],
             Mode::Threads => vec![Series::Threads],
-            Mode::Both => vec![Series::Strong, Series::Weak],
+            Mode::StrongWeak | Mode::Both => vec![Series::Strong, Series::Weak],
             Mode::All => vec![Series::Strong, Series::Weak, Series::Threads],
         }
     }
@@ -71,13 +74,16 @@ pub struct Options {
     /// Comma-separated rank counts, e.g. 1,2,4,8.
     #[arg(long, value_delimiter = ',', required = true)]
     pub ranks: Vec<usize>,
-    /// Strong and threads: total particles; weak: particles per rank
+    /// Strong and threads: total Monte Carlo samples; weak: samples per rank
     /// (default: the job's count; with --quick 20000).
     #[arg(long)]
+    pub samples: Option<u64>,
+    /// The old spelling of --samples, read with a warning.
+    #[arg(long, hide = true, conflicts_with = "samples")]
     pub particles: Option<u64>,
     #[arg(long, value_enum, default_value = "all")]
     pub mode: Mode,
-    /// Short series: at most 20 synchronisation steps, 20000 particles by default.
+    /// Short series: at most 20 synchronisation steps, 20000 samples by default.
     #[arg(long)]
     pub quick: bool,
     /// Directory for the CSV files, pictures and machine.txt.
@@ -97,8 +103,8 @@ pub struct Options {
     pub keep_runs: bool,
 }
 
-/// Particle count of quick series unless --particles is given.
-pub const QUICK_PARTICLES: u64 = 20_000;
+/// Sample count of quick series unless --samples is given.
+pub const QUICK_SAMPLES: u64 = 20_000;
 /// Synchronisation steps of a quick run at most.
 pub const QUICK_STEPS: f64 = 20.0;
 
@@ -108,8 +114,8 @@ pub struct Row {
     pub mode: String,
     pub ranks: usize,
     pub threads: usize,
-    pub particles_initial: f64,
-    pub particles_final: f64,
+    pub samples_initial: f64,
+    pub samples_final: f64,
     pub annihilations: usize,
     /// Longest `wall_seconds` over the ranks.
     pub wall_s: f64,
@@ -134,8 +140,8 @@ pub fn header() -> Vec<String> {
         "mode",
         "ranks",
         "threads",
-        "particles_initial",
-        "particles_final",
+        "samples_initial",
+        "samples_final",
         "annihilations",
         "wall_s",
         "launch_s",
@@ -164,8 +170,8 @@ impl Row {
             self.mode.clone(),
             self.ranks.to_string(),
             self.threads.to_string(),
-            self.particles_initial.to_string(),
-            self.particles_final.to_string(),
+            self.samples_initial.to_string(),
+            self.samples_final.to_string(),
             self.annihilations.to_string(),
             format!("{:.6}", self.wall_s),
             format!("{:.6}", self.launch_s),
@@ -238,15 +244,15 @@ pub fn row_from(file: &ResultFile, mode: &str, launch_s: f64) -> Result<Row> {
     let cells = get("occupied_cells")?;
     let counts = file
         .series
-        .get(names::PARTICLES.name)
+        .get(names::SAMPLES.name)
         .map(|s| s.data.clone())
         .unwrap_or_default();
     Ok(Row {
         mode: mode.to_string(),
         ranks,
         threads,
-        particles_initial: counts.first().copied().unwrap_or(f64::NAN),
-        particles_final: counts.last().copied().unwrap_or(f64::NAN),
+        samples_initial: counts.first().copied().unwrap_or(f64::NAN),
+        samples_final: counts.last().copied().unwrap_or(f64::NAN),
         annihilations: bytes.len() / ranks,
         wall_s: max(get("wall_seconds")?),
         launch_s,
@@ -292,10 +298,10 @@ pub fn drive(opts: &Options, say: &mut dyn FnMut(String)) -> Result<Vec<PathBuf>
         let end = numerics.end_time.min(QUICK_STEPS * numerics.sync_step);
         set.push(format!("numerics.end_time={end}"));
     }
-    let particles = opts.particles.unwrap_or(if opts.quick {
-        QUICK_PARTICLES
+    let particles = opts.samples.or(opts.particles).unwrap_or(if opts.quick {
+        QUICK_SAMPLES
     } else {
-        numerics.particles
+        numerics.samples
     });
     let stem = opts
         .job
@@ -331,11 +337,11 @@ pub fn drive(opts: &Options, say: &mut dyn FnMut(String)) -> Result<Vec<PathBuf>
                 ));
                 let row = measure(&exe, opts, &set, series.name(), &dir, ranks, threads, n)?;
                 say(format!(
-                    "signfold scaling: {} {} rank(s) × {} thread(s), {} particles: {:.3} s",
+                    "signfold scaling: {} {} rank(s) × {} thread(s), {} samples: {:.3} s",
                     series.name(),
                     ranks,
                     threads,
-                    row.particles_initial,
+                    row.samples_initial,
                     row.wall_s
                 ));
                 if !opts.keep_runs {
@@ -398,7 +404,7 @@ fn measure(
         .arg(&opts.job)
         .arg("--out")
         .arg(dir)
-        .args(["--particles", &particles.to_string()])
+        .args(["--samples", &particles.to_string()])
         .args(["--threads", &threads.to_string()])
         .arg("--force");
     for s in set {
@@ -637,8 +643,8 @@ mod tests {
             mode: "x".into(),
             ranks,
             threads,
-            particles_initial: 1.0,
-            particles_final: 1.0,
+            samples_initial: 1.0,
+            samples_final: 1.0,
             annihilations: 0,
             wall_s,
             launch_s: wall_s,

@@ -140,7 +140,7 @@ pub fn assess(
     let mass = units::mass_from_electron_masses(job.particles.mass);
     let one = OneBody::from_job(
         &job.potentials,
-        (d.x_max - d.x_min) / d.cells as f64,
+        (d.x_max - d.x_min) / d.mesh_cells as f64,
         mass,
         &loaded.base_dir,
     )?;

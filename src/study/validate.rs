@@ -319,7 +319,7 @@ fn floors(n: usize, mc: &ResultFile, exact: &ResultFile) -> Floors {
     }
     fl.peak_particles = mc
         .series
-        .get(names::PARTICLES.name)
+        .get(names::SAMPLES.name)
         .map_or(0.0, |s| s.data.iter().cloned().fold(0.0, f64::max));
     fl
 }
@@ -492,7 +492,7 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
         outcomes.push(JobOutcome {
             name,
             n,
-            particles: loaded.job.numerics.particles,
+            particles: loaded.job.numerics.samples,
             checks,
             floors: fl,
             warnings,
@@ -529,8 +529,8 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
 fn sample_resolution(mc: &ResultFile) -> f64 {
     let first = |d: Dataset| mc.series.get(d.name).map_or(f64::NAN, |s| s.data[0]);
     let (pos, neg) = (
-        first(names::PARTICLES_POSITIVE),
-        first(names::PARTICLES_NEGATIVE),
+        first(names::SAMPLES_POSITIVE),
+        first(names::SAMPLES_NEGATIVE),
     );
     1.0 / (pos - neg).abs().max(1.0)
 }
@@ -618,7 +618,7 @@ fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
     );
     let _ = writeln!(
         s,
-        "| job | N | particles | checks | failed | worst scalar z | worst binned Z | transmitted s.e. | ∫n₂(x,x) s.e. | density noise L1 | peak count | MC wall (s) |"
+        "| job | N | samples | checks | failed | worst scalar z | worst binned Z | transmitted s.e. | ∫n₂(x,x) s.e. | density noise L1 | peak count | MC wall (s) |"
     );
     let _ = writeln!(s, "|---|---|---|---|---|---|---|---|---|---|---|---|");
     for o in outcomes {

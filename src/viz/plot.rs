@@ -467,13 +467,14 @@ impl Heatmap<'_> {
                     [(lo, lo), (hi, hi)],
                     6,
                     9,
-                    RGBColor(0, 110, 140).stroke_width(1),
+                    RGBColor(colormap::MARK.0, colormap::MARK.1, colormap::MARK.2).stroke_width(1),
                 ))?
                 .label("x = x′")
                 .legend(|(x, y)| {
                     PathElement::new(
                         vec![(x, y), (x + 20, y)],
-                        RGBColor(0, 110, 140).stroke_width(1),
+                        RGBColor(colormap::MARK.0, colormap::MARK.1, colormap::MARK.2)
+                            .stroke_width(1),
                     )
                 });
             chart
@@ -632,8 +633,8 @@ const HISTORY: [Panel; 4] = [
     Panel::Transmitted,
     Panel::Series(names::ENERGY.name, names::ENERGY.name, RELATIVE),
     Panel::Series(
-        names::PARTICLES.name,
-        "particle count",
+        names::SAMPLES.name,
+        "sample count",
         ValueAxis {
             min_relative_span: 0.01,
             integer: true,
@@ -888,7 +889,7 @@ mod tests {
             vec![0.0],
         );
         // Reference: no norm_right; transmitted = absorbed_right + (1/N) Σ_{x>0} n Δx.
-        let job = "[particles]\ncount = 2\nstatistics = \"fermion\"\n[domain]\nx_min = -2.0\nx_max = 2.0\nboundary = \"absorbing\"\n[numerics]\nend_time = 1.0\nparticles = 100\n";
+        let job = "[particles]\ncount = 2\nstatistics = \"fermion\"\n[domain]\nx_min = -2.0\nx_max = 2.0\nboundary = \"absorbing\"\n[numerics]\nend_time = 1.0\nsamples = 100\n";
         let mut b = ResultFile::new(
             crate::io::results::REFERENCE_TYPE,
             job,
@@ -902,7 +903,7 @@ mod tests {
                 a.put(d, &[], &[0.5]);
                 a.push(&names::error_of(d.name), d.units, &[], &[0.01]);
             }
-            a.put(names::PARTICLES, &[], &[1000.0]);
+            a.put(names::SAMPLES, &[], &[1000.0]);
             b.put(names::NORM, &[], &[1.0]);
             b.put(names::ENERGY, &[], &[0.4]);
             b.put(names::ABSORBED_RIGHT, &[], &[0.1 * t as f64]);
@@ -918,7 +919,7 @@ mod tests {
                 ("norm", 2),
                 ("transmitted norm", 2),
                 ("energy", 2),
-                ("particle count", 1)
+                ("sample count", 1)
             ]
         );
         let transmitted = &panels[1].2[1];

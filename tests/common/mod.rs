@@ -64,7 +64,7 @@ width = 5.0
 [domain]
 x_min = -80.0
 x_max = 80.0
-cells = 160
+mesh_cells = 160
 boundary = "absorbing"
 k_max = 1.5
 
@@ -72,7 +72,7 @@ k_max = 1.5
 coherence_length = 100.0
 sync_step = 2.0
 end_time = 8.0
-particles = 2000
+samples = 2000
 groups = 4
 seed = 1
 "#;
