@@ -275,6 +275,9 @@ fn report(setup: &Setup, ratio: f64, draws: u64) -> Result<String> {
             ""
         }
     )?;
+    if let Some(note) = setup.images_note() {
+        writeln!(w, "{note}")?;
+    }
     writeln!(
         w,
         "coherence length L_c = {} nm, window roll-off {} nm",

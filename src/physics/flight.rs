@@ -96,16 +96,7 @@ fn boundary(setup: &Setup, x: &mut f64, k: &mut f64) -> Fate {
             Fate::Inside
         }
         Boundary::Reflecting => {
-            let m = (*x - lo).rem_euclid(2.0 * w);
-            if m > w {
-                *x = lo + 2.0 * w - m;
-                *k = -*k;
-            } else {
-                *x = lo + m;
-            }
-            if *x >= hi {
-                *x = hi - 1e-12 * w;
-            }
+            crate::physics::images::fold(lo, hi, x, k);
             Fate::Inside
         }
     }

@@ -9,6 +9,7 @@
 //! sign(w_d) at the draw, w₀ = Σ|w_d| / target.
 
 use crate::config::job::Statistics;
+use crate::physics::images::Component;
 use crate::physics::orbitals::{Envelope, Gaussian, cross_wigner, envelope, overlap};
 use crate::physics::particles::Store;
 use crate::physics::rng::{self, tag};
@@ -64,32 +65,123 @@ fn determinant(m: &[Complex64], n: usize) -> Complex64 {
     DMatrix::from_row_slice(n, n, m).determinant()
 }
 
-/// The (anti)symmetrised N-body Wigner function of Gaussian orbitals, with its proposal.
+/// One orbital pair (a, b) of the proposal: the component pairs (p, q) of W_ab =
+/// Σ_pq c_p c_q* W[g_ap, g_bq], their envelopes, and an alias sampler over them with weights
+/// |c_p c_q|·∫|W[g_ap, g_bq]| (None for a single pair).
+struct PairMix {
+    /// (p, q, c_p c_q*, |c_p c_q|).
+    terms: Vec<(usize, usize, Complex64, f64)>,
+    env: Vec<Envelope>,
+    picker: Option<WeightedAliasIndex<f64>>,
+    /// Σ_pq |c_p c_q| ∫|W[g_ap, g_bq]|.
+    mass: f64,
+    /// One plain component on each side (coefficient exactly 1): W_ab is the closed form
+    /// itself, evaluated without the coefficient products.
+    plain: bool,
+}
+
+/// The (anti)symmetrised N-body Wigner function of orbitals that are signed sums of
+/// Gaussians (a Gaussian and its wall images, docs/method.md §2.5), with its proposal.
 pub struct NBodyWigner {
     n: usize,
     stats: Statistics,
-    orbitals: Vec<Gaussian>,
+    orbitals: Vec<Vec<Component>>,
     /// |C|² of the normalised (anti)symmetrised state.
     c2: f64,
     perms: Vec<(Vec<usize>, f64)>,
-    /// Envelopes of |W_ab|, row-major a·n + b.
-    env: Vec<Envelope>,
+    /// Orbital pairs, row-major a·n + b.
+    pairs: Vec<PairMix>,
     /// Mixture components (σ index, τ index) and their alias sampler.
     components: Vec<(usize, usize)>,
     picker: WeightedAliasIndex<f64>,
-    /// Z = Σ_{σ,τ} Π_i ∫|W_σ(i)τ(i)|.
+    /// Z = Σ_{σ,τ} Π_i M_σ(i)τ(i), M_ab the mass of pair (a, b).
     z: f64,
 }
 
+/// `same`: a and b are the same orbital; its coherences with its own translates by 2nL
+/// (n ≠ 0) are left out (they lie beyond one period of the odd extension, docs/method.md
+/// §2.5).
+fn pair_mix(a: &[Component], b: &[Component], same: bool) -> Result<PairMix> {
+    let plain = a.len() == 1
+        && b.len() == 1
+        && a[0] == Component::plain(a[0].g)
+        && b[0] == Component::plain(b[0].g);
+    let mut terms = Vec::new();
+    let mut env = Vec::new();
+    let mut weights = Vec::new();
+    for (p, ca) in a.iter().enumerate() {
+        for (q, cb) in b.iter().enumerate() {
+            if same && ca.is_translate_of(cb) {
+                continue;
+            }
+            let e = envelope(&ca.g, &cb.g);
+            let c = ca.coef * cb.coef.conj();
+            let abs = ca.coef.norm() * cb.coef.norm();
+            terms.push((p, q, c, abs));
+            weights.push(if plain { e.mass() } else { abs * e.mass() });
+            env.push(e);
+        }
+    }
+    let mass = weights.iter().sum();
+    let picker = if weights.len() > 1 {
+        Some(
+            WeightedAliasIndex::new(weights)
+                .map_err(|e| anyhow::anyhow!("initial state proposal over images: {e}"))?,
+        )
+    } else {
+        None
+    };
+    Ok(PairMix {
+        terms,
+        env,
+        picker,
+        mass,
+        plain,
+    })
+}
+
 impl NBodyWigner {
+    /// Plain Gaussian orbitals (no walls).
     pub fn new(orbitals: &[Gaussian], stats: Statistics) -> Result<Self> {
+        let o: Vec<Vec<Component>> = orbitals
+            .iter()
+            .map(|g| vec![Component::plain(*g)])
+            .collect();
+        Self::with_components(o, stats)
+    }
+
+    /// Orbitals given as signed sums of Gaussians φ_a = Σ_p c_ap G_ap. Overlaps and the
+    /// normalisation are those of these sums on the whole line.
+    pub fn with_components(orbitals: Vec<Vec<Component>>, stats: Statistics) -> Result<Self> {
         let n = orbitals.len();
+        let ov = |a: &[Component], b: &[Component]| -> Complex64 {
+            if a.len() == 1
+                && b.len() == 1
+                && a[0] == Component::plain(a[0].g)
+                && b[0] == Component::plain(b[0].g)
+            {
+                return overlap(&a[0].g, &b[0].g);
+            }
+            let mut s = Complex64::new(0.0, 0.0);
+            for ca in a {
+                for cb in b {
+                    s += ca.coef.conj() * cb.coef * overlap(&ca.g, &cb.g);
+                }
+            }
+            s
+        };
         let s: Vec<Complex64> = (0..n * n)
-            .map(|ab| overlap(&orbitals[ab / n], &orbitals[ab % n]))
+            .map(|ab| ov(&orbitals[ab / n], &orbitals[ab % n]))
             .collect();
         let fact: f64 = (1..=n).map(|i| i as f64).product();
+        let pairs_plain = orbitals
+            .iter()
+            .all(|o| o.len() == 1 && o[0] == Component::plain(o[0].g));
         let c2 = match stats {
-            Statistics::Distinguishable => 1.0,
+            // Plain Gaussians are normalised in closed form (C = 1 exactly); orbitals with
+            // images are normalised on the whole line.
+            Statistics::Distinguishable if pairs_plain => 1.0,
+            Statistics::Distinguishable => (0..n).map(|a| 1.0 / s[a * n + a].re).product(),
             Statistics::Fermion => {
                 let d = determinant(&s, n).re;
                 if d < 1e-10 {
@@ -118,9 +210,9 @@ impl NBodyWigner {
             Statistics::Distinguishable => vec![((0..n).collect(), 1.0)],
             _ => permutations(n),
         };
-        let env: Vec<Envelope> = (0..n * n)
-            .map(|ab| envelope(&orbitals[ab / n], &orbitals[ab % n]))
-            .collect();
+        let pairs: Vec<PairMix> = (0..n * n)
+            .map(|ab| pair_mix(&orbitals[ab / n], &orbitals[ab % n], ab / n == ab % n))
+            .collect::<Result<_>>()?;
         let mut components = Vec::new();
         let mut weights = Vec::new();
         for (si, (sigma, _)) in perms.iter().enumerate() {
@@ -128,7 +220,7 @@ impl NBodyWigner {
                 components.push((si, ti));
                 weights.push(
                     (0..n)
-                        .map(|i| env[sigma[i] * n + tau[i]].mass())
+                        .map(|i| pairs[sigma[i] * n + tau[i]].mass)
                         .product::<f64>(),
                 );
             }
@@ -139,39 +231,51 @@ impl NBodyWigner {
         Ok(NBodyWigner {
             n,
             stats,
-            orbitals: orbitals.to_vec(),
+            orbitals,
             c2,
             perms,
-            env,
+            pairs,
             components,
             picker,
             z,
         })
     }
 
-    /// Cross-Wigner values W_ab(x_i, k_i), index (i·n + a)·n + b.
-    fn cross_values(&self, x: &[f64], k: &[f64]) -> Vec<Complex64> {
+    /// Cross-Wigner values W_ab(x_i, k_i) and their proposal envelopes
+    /// E_ab = Σ_pq |c_p c_q| |W[g_ap, g_bq]|, index (i·n + a)·n + b.
+    fn cross_values(&self, x: &[f64], k: &[f64]) -> (Vec<Complex64>, Vec<f64>) {
         let n = self.n;
         let mut out = Vec::with_capacity(n * n * n);
+        let mut env = Vec::with_capacity(n * n * n);
         for i in 0..n {
             for a in 0..n {
                 for b in 0..n {
-                    out.push(cross_wigner(
-                        &self.orbitals[a],
-                        &self.orbitals[b],
-                        x[i],
-                        k[i],
-                    ));
+                    let (oa, ob) = (&self.orbitals[a], &self.orbitals[b]);
+                    let pm = &self.pairs[a * n + b];
+                    if pm.plain {
+                        let w = cross_wigner(&oa[0].g, &ob[0].g, x[i], k[i]);
+                        out.push(w);
+                        env.push(w.norm());
+                        continue;
+                    }
+                    let (mut w, mut e) = (Complex64::new(0.0, 0.0), 0.0);
+                    for &(p, q, c, abs) in &pm.terms {
+                        let v = cross_wigner(&oa[p].g, &ob[q].g, x[i], k[i]);
+                        w += c * v;
+                        e += abs * v.norm();
+                    }
+                    out.push(w);
+                    env.push(e);
                 }
             }
         }
-        out
+        (out, env)
     }
 
     fn value_from(&self, w: &[Complex64]) -> f64 {
         let n = self.n;
         if self.stats == Statistics::Distinguishable {
-            return (0..n).map(|i| w[(i * n + i) * n + i].re).product();
+            return self.c2 * (0..n).map(|i| w[(i * n + i) * n + i].re).product::<f64>();
         }
         let mut total = Complex64::new(0.0, 0.0);
         let mut m = vec![Complex64::new(0.0, 0.0); n * n];
@@ -190,19 +294,20 @@ impl NBodyWigner {
         self.c2 * total.re
     }
 
-    /// W(x, k) in (1/nm · nm)^N, i.e. normalised so that ∫ W d^N x d^N k = 1.
+    /// W(x, k) in (1/nm · nm)^N, i.e. normalised so that ∫ W d^N x d^N k = 1 (over the
+    /// whole line for orbitals with images).
     pub fn value(&self, x: &[f64], k: &[f64]) -> f64 {
-        self.value_from(&self.cross_values(x, k))
+        self.value_from(&self.cross_values(x, k).0)
     }
 
-    /// The proposal density g(z) = Σ_{σ,τ} Π_i |W_σ(i)τ(i)(z_i)| / Z.
-    fn proposal_from(&self, w: &[Complex64]) -> f64 {
+    /// The proposal density g(z) = Σ_{σ,τ} Π_i E_σ(i)τ(i)(z_i) / Z.
+    fn proposal_from(&self, e: &[f64]) -> f64 {
         let n = self.n;
         let mut g = 0.0;
         for &(si, ti) in &self.components {
             let (sigma, tau) = (&self.perms[si].0, &self.perms[ti].0);
             g += (0..n)
-                .map(|i| w[(i * n + sigma[i]) * n + tau[i]].norm())
+                .map(|i| e[(i * n + sigma[i]) * n + tau[i]])
                 .product::<f64>();
         }
         g / self.z
@@ -213,13 +318,22 @@ impl NBodyWigner {
         let (si, ti) = self.components[self.picker.sample(rng)];
         let (sigma, tau) = (&self.perms[si].0, &self.perms[ti].0);
         for i in 0..self.n {
-            let e = &self.env[sigma[i] * self.n + tau[i]];
+            let pm = &self.pairs[sigma[i] * self.n + tau[i]];
+            let e = match &pm.picker {
+                Some(p) => &pm.env[p.sample(rng)],
+                None => &pm.env[0],
+            };
             let (a, b): (f64, f64) = (StandardNormal.sample(rng), StandardNormal.sample(rng));
             x[i] = e.x_centre + e.sigma_x * a;
             k[i] = e.k_centre + e.sigma_k * b;
         }
-        let w = self.cross_values(x, k);
-        self.value_from(&w) / self.proposal_from(&w)
+        let (w, e) = self.cross_values(x, k);
+        self.value_from(&w) / self.proposal_from(&e)
+    }
+
+    /// Gaussian components per orbital (1 + the number of wall images).
+    pub fn components_per_orbital(&self) -> Vec<usize> {
+        self.orbitals.iter().map(|o| o.len()).collect()
     }
 
     /// Bound on |W/g| (= |C|² Z), useful for fixed-point sums.
@@ -420,5 +534,116 @@ mod tests {
             .unwrap()
             .to_string();
         assert!(e.contains("Slater determinant vanishes"), "{e}");
+    }
+
+    /// An orbital 2.5 widths from a hard wall at x = 10 with its mirror image (the odd
+    /// extension, docs/method.md §2.5), normalised on the whole line.
+    fn walled() -> (Vec<Component>, f64) {
+        let g = Gaussian {
+            x0: 5.0,
+            k0: 1.3,
+            sigma: 2.0,
+        };
+        let c = crate::physics::images::image_components(
+            &g,
+            -30.0,
+            10.0,
+            12.0,
+            crate::physics::images::Touches {
+                lo: false,
+                hi: true,
+            },
+        );
+        assert_eq!(c.len(), 2);
+        // ∫|ψ_ext|² over the line by the midpoint rule (the integrand is smooth and decays
+        // as a Gaussian: spectrally accurate).
+        let dx = 0.005;
+        let norm: f64 = (0..12000)
+            .map(|j| crate::physics::images::psi(&c, -20.0 + (j as f64 + 0.5) * dx).norm_sqr() * dx)
+            .sum();
+        (c, norm)
+    }
+
+    /// The Wigner function of the image-extended orbital equals the Wigner transform of
+    /// ψ_ext = φ − φ_mirror by quadrature (definition, docs/method.md §1.1), including the
+    /// cross term at the wall; its k-marginal is |ψ_ext|², which vanishes at the wall and
+    /// has fringes of period π/k₀ before it.
+    #[test]
+    fn image_extended_wigner_is_the_wigner_transform_of_the_odd_extension() {
+        let (c, norm) = walled();
+        let w = NBodyWigner::with_components(vec![c.clone()], Statistics::Distinguishable).unwrap();
+        let psi = |x: f64| crate::physics::images::psi(&c, x);
+        for &(x, k) in &[
+            (9.0, 0.0),
+            (9.0, 1.3),
+            (7.5, -0.7),
+            (10.0, 0.4),
+            (11.2, -1.3),
+        ] {
+            let (n, ymax) = (16000, 40.0);
+            let dy = 2.0 * ymax / n as f64;
+            let mut q = Complex64::new(0.0, 0.0);
+            for j in 0..n {
+                let y = -ymax + (j as f64 + 0.5) * dy;
+                q += Complex64::new(0.0, -k * y).exp() * psi(x + y / 2.0) * psi(x - y / 2.0).conj();
+            }
+            let exact = (q * dy / (2.0 * std::f64::consts::PI)).re / norm;
+            let v = w.value(&[x], &[k]);
+            assert!((v - exact).abs() < 1e-9, "({x}, {k}): {v} vs {exact}");
+        }
+        // x-marginal by quadrature in k: |ψ_ext(x)|²/norm, zero at the wall.
+        for &x in &[6.0, 8.2, 9.4, 10.0] {
+            let (n, kmax) = (4000, 12.0);
+            let dk = 2.0 * kmax / n as f64;
+            let m: f64 = (0..n)
+                .map(|j| w.value(&[x], &[-kmax + (j as f64 + 0.5) * dk]))
+                .sum::<f64>()
+                * dk;
+            let exact = psi(x).norm_sqr() / norm;
+            assert!((m - exact).abs() < 1e-9, "x = {x}: {m} vs {exact}");
+        }
+        assert!(psi(10.0).norm() < 1e-12);
+    }
+
+    /// Draws of the image-extended state kept inside the box reproduce the image-corrected
+    /// density: E[r·1_bin] = ∫_bin |ψ_ext|² dx / ∫|ψ_ext|² (importance sampling, r = W/g).
+    /// Each bin's mean is tested with its own standard error from the draws (independent
+    /// draws, so the mean is close to normal); max |z| ≤ 4.5 over 16 bins fails by chance
+    /// with probability about 16 × 7·10⁻⁶.
+    #[test]
+    fn box_samples_reproduce_the_image_corrected_density() {
+        let (c, norm) = walled();
+        let w = NBodyWigner::with_components(vec![c.clone()], Statistics::Distinguishable).unwrap();
+        let (lo, hi, bins) = (-2.0, 10.0, 16usize);
+        let width = (hi - lo) / bins as f64;
+        let d = 400_000u64;
+        let (mut s1, mut s2) = (vec![0.0; bins], vec![0.0; bins]);
+        let (mut x, mut k) = ([0.0], [0.0]);
+        for i in 0..d {
+            let r = w.draw(&mut draw_stream(77, i), &mut x, &mut k);
+            if x[0] >= lo && x[0] < hi {
+                let b = ((x[0] - lo) / width) as usize;
+                s1[b] += r;
+                s2[b] += r * r;
+            }
+        }
+        let mut worst: f64 = 0.0;
+        for b in 0..bins {
+            let mean = s1[b] / d as f64;
+            let se = ((s2[b] / d as f64 - mean * mean) / (d as f64 - 1.0)).sqrt();
+            let (a, n) = (lo + b as f64 * width, 200);
+            let h = width / n as f64;
+            let exact: f64 = (0..n)
+                .map(|j| crate::physics::images::psi(&c, a + (j as f64 + 0.5) * h).norm_sqr() * h)
+                .sum::<f64>()
+                / norm;
+            let z = (mean - exact) / se;
+            worst = worst.max(z.abs());
+            assert!(
+                z.abs() <= 4.5,
+                "bin {b}: {mean} ± {se} vs {exact} (z = {z:.2})"
+            );
+        }
+        assert!(worst > 0.0);
     }
 }

@@ -8,6 +8,7 @@ pub mod defaults;
 pub mod estimators;
 pub mod flight;
 pub mod grid;
+pub mod images;
 pub mod initial;
 pub mod kernel;
 pub mod numerics;

@@ -3,6 +3,7 @@
 
 use crate::config::job::{Boundary, CellKind, Job, LoadedJob, Resolution, Statistics};
 use crate::physics::grid::{self, Bins};
+use crate::physics::images::{self, Component};
 use crate::physics::initial::NBodyWigner;
 use crate::physics::kernel::KernelTable;
 use crate::physics::orbitals::Gaussian;
@@ -20,6 +21,9 @@ pub struct Setup {
     /// Mass, eV·fs²/nm².
     pub mass: f64,
     pub orbitals: Vec<Gaussian>,
+    /// Each orbital as a signed sum of Gaussians: itself and, in a reflecting box, its wall
+    /// images that can reach the box by the end time (docs/method.md §2.5).
+    pub orbital_components: Vec<Vec<Component>>,
     pub lo: f64,
     pub hi: f64,
     pub boundary: Boundary,
@@ -201,12 +205,27 @@ impl Setup {
             .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
         let pair = PairPotential::from_job(&job.pair);
         let orbitals: Vec<Gaussian> = job.orbitals.iter().map(Gaussian::from).collect();
+        let reflecting = job.domain.boundary == Boundary::Reflecting;
+        let walls = images::orbital_components(
+            &orbitals,
+            &one_body,
+            mass,
+            lo,
+            hi,
+            job.domain.boundary,
+            job.numerics.end_time,
+        );
         // Fail early, naming the file, when the (anti)symmetrised state does not exist.
-        NBodyWigner::new(&orbitals, job.particles.statistics)
+        let orbital_components = walls.components.clone();
+        NBodyWigner::with_components(orbital_components.clone(), job.particles.statistics)
             .map_err(|e| anyhow!("{}: {e:#}", loaded.origin))?;
+        // Against a hard wall the folded field or trap has a kink: a kernel term beyond the
+        // wall even without kernel potentials (docs/method.md §2.5).
+        let touched = walls.touches.lo || walls.touches.hi;
+        let needs_table1 = one_body.has_kernel() || (touched && !one_body.force.is_zero());
         check_sizes(
             &job,
-            one_body.has_kernel(),
+            needs_table1,
             pair.is_some(),
             rayon::current_num_threads(),
         )
@@ -223,19 +242,34 @@ impl Setup {
         let period = lc.max(0.5 * (width + lc));
         let dk = std::f64::consts::PI / period;
         let cap = cap_of(period);
-        let table1 = one_body.has_kernel().then(|| {
+        let table1 = needs_table1.then(|| {
             let ob = one_body.clone();
-            let u = move |x: f64| ob.kernel_part(x);
-            KernelTable::build(
-                &u,
-                lo,
-                mesh_dx,
-                job.domain.mesh_cells,
-                lc,
-                rolloff,
-                period,
-                cap,
-            )
+            if reflecting && touched {
+                let t = walls.touches;
+                let u = move |y: f64| images::kernel_potential_with_walls(&ob, lo, hi, t, y);
+                KernelTable::build(
+                    &u,
+                    lo,
+                    mesh_dx,
+                    job.domain.mesh_cells,
+                    lc,
+                    rolloff,
+                    period,
+                    cap,
+                )
+            } else {
+                let u = move |x: f64| ob.kernel_part(x);
+                KernelTable::build(
+                    &u,
+                    lo,
+                    mesh_dx,
+                    job.domain.mesh_cells,
+                    lc,
+                    rolloff,
+                    period,
+                    cap,
+                )
+            }
         });
         let table2 = (n >= 2).then_some(()).and(pair).map(|p| {
             // Periodic: minimal-image separations lie in [−L/2, L/2]; otherwise [−L, L].
@@ -268,6 +302,7 @@ impl Setup {
             stats: job.particles.statistics,
             mass,
             orbitals,
+            orbital_components,
             lo,
             hi,
             boundary: job.domain.boundary,
@@ -304,12 +339,48 @@ impl Setup {
             memory_limit,
             text: loaded.text.clone(),
             job,
-        })
+        }
+        .with_images_note())
     }
 
-    /// The initial N-body Wigner function (fails when the Slater determinant vanishes).
+    /// Append the wall-image note to the job text stored in results (once).
+    fn with_images_note(mut self) -> Self {
+        if let Some(note) = self.images_note()
+            && !self.text.contains("# wall images")
+        {
+            self.text = format!("{}\n# {note}\n", self.text.trim_end());
+        }
+        self
+    }
+
+    /// The initial N-body Wigner function (fails when the Slater determinant vanishes), of
+    /// the orbitals with their wall images in a reflecting box.
     pub fn initial_state(&self) -> Result<NBodyWigner> {
-        NBodyWigner::new(&self.orbitals, self.stats)
+        NBodyWigner::with_components(self.orbital_components.clone(), self.stats)
+    }
+
+    /// For a reflecting box: how many wall images each orbital carries and why.
+    pub fn images_note(&self) -> Option<String> {
+        if self.boundary != Boundary::Reflecting {
+            return None;
+        }
+        let per: Vec<String> = self
+            .orbital_components
+            .iter()
+            .map(|c| (c.len() - 1).to_string())
+            .collect();
+        Some(format!(
+            "wall images (method of images, docs/method.md §2.5): {} in all ({} per orbital), those whose centre lies \
+             within v·t_end + 6σ of the box (v = ħ sqrt((|k₀| + 5/(2σ))² + 2mΔU/ħ²)/m, ΔU the range of the one-body \
+             potential in the box)",
+            self.image_count(),
+            per.join(", ")
+        ))
+    }
+
+    /// Number of wall-image components over all orbitals (0 without reflecting walls).
+    pub fn image_count(&self) -> usize {
+        self.orbital_components.iter().map(|c| c.len() - 1).sum()
     }
 
     /// Period 2π/d in k of the exchange (cross-Wigner) oscillation, 1/nm, for identical

@@ -17,6 +17,7 @@ use crate::config::job::LoadedJob;
 use crate::io::names;
 use crate::io::results::{REFERENCE_TYPE, ResultFile};
 use crate::physics::grid;
+use crate::physics::orbitals::Gaussian;
 use crate::physics::potential::{OneBody, PairPotential};
 use crate::physics::units;
 use anyhow::{Result, bail};
@@ -360,7 +361,19 @@ pub fn solve_with(
     };
     let (one, pair) = potentials(loaded)?;
     let (v, cap) = build_potential(&axis, shape, &one, pair);
-    let (psi, warnings) = state::initial_state(job, &axis, shape)?;
+    // The same orbitals as the Monte Carlo's: in a reflecting box each minus its wall
+    // images (the odd extension restricted to the box, docs/method.md §2.5).
+    let components = crate::physics::images::orbital_components(
+        &job.orbitals.iter().map(Gaussian::from).collect::<Vec<_>>(),
+        &one,
+        units::mass_from_electron_masses(job.particles.mass),
+        job.domain.x_min,
+        job.domain.x_max,
+        job.domain.boundary,
+        job.numerics.end_time,
+    )
+    .components;
+    let (psi, warnings) = state::initial_state(job, &components, &axis, shape)?;
     for w in plan.warnings.iter().chain(&warnings) {
         progress(&Progress::Warning(format!("{}: {w}", loaded.origin)));
     }

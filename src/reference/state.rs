@@ -4,7 +4,7 @@
 use super::lines::Shape;
 use super::mesh::Axis;
 use crate::config::job::{Job, Statistics};
-use crate::physics::orbitals::Gaussian;
+use crate::physics::images::{self, Component};
 use anyhow::{Result, bail};
 use num_complex::Complex64 as C;
 use rayon::prelude::*;
@@ -37,13 +37,19 @@ fn combine(m: &[[C; 3]; 3], n: usize, stat: Statistics) -> C {
 
 /// ψ(x_1..x_N) = C Σ_σ ε(σ) Π_i φ_σ(i)(x_i) on the grid, with Σ|ψ|² dx^N = 1. Also returns the
 /// warnings (orbitals not contained in the grid).
-pub fn initial_state(job: &Job, axis: &Axis, shape: Shape) -> Result<(Vec<C>, Vec<String>)> {
+/// `components`: each orbital as a signed sum of Gaussians (itself and, in a reflecting
+/// box, its wall images; `physics::numerics::orbital_components`).
+pub fn initial_state(
+    job: &Job,
+    components: &[Vec<Component>],
+    axis: &Axis,
+    shape: Shape,
+) -> Result<(Vec<C>, Vec<String>)> {
     let n_p = job.particles.count;
-    let orbs: Vec<Gaussian> = job.orbitals.iter().map(Gaussian::from).collect();
     // φ_a(x_j) tabulated on the grid.
-    let table: Vec<Vec<C>> = orbs
+    let table: Vec<Vec<C>> = components
         .iter()
-        .map(|g| (0..axis.n).map(|j| g.psi(axis.x(j))).collect())
+        .map(|c| (0..axis.n).map(|j| images::psi(c, axis.x(j))).collect())
         .collect();
     let mut warnings = Vec::new();
     for (a, t) in table.iter().enumerate() {
