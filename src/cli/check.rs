@@ -403,6 +403,22 @@ pub fn warnings(setup: &Setup) -> Vec<String> {
             setup.lc
         ));
     }
+    let copies: usize = setup
+        .orbital_components
+        .iter()
+        .flatten()
+        .filter(|c| c.wrapped)
+        .count();
+    let w = setup.orbitals.iter().map(|o| o.sigma).fold(0.0, f64::max);
+    let ring = setup.hi - setup.lo + 6.0 * w;
+    if copies > 0 && setup.lc < ring {
+        out.push(format!(
+            "content wraps around the periodic box, but the coherence length {} nm is below L + 6w = {ring} nm: the \
+             coherence of a packet with its copy one turn away (y ≈ L) lies outside the window and feels no potential, \
+             so pieces that meet after wrapping around interfere wrongly (docs/method.md §2.5)",
+            setup.lc
+        ));
+    }
     for (i, o) in setup.orbitals.iter().enumerate() {
         if o.x0 - 5.0 * o.sigma < setup.lo || o.x0 + 5.0 * o.sigma > setup.hi {
             out.push(format!("orbital.{i} reaches within 5 widths of the domain edge: part of its norm starts outside"));

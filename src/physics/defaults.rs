@@ -4,6 +4,7 @@
 //! result file records it; a job that sets a key keeps its own value.
 
 use crate::config::job::{self, LoadedJob, Pair, PotentialTerm};
+use crate::physics::images;
 use crate::physics::numerics::Setup;
 use crate::physics::orbitals::Gaussian;
 use crate::physics::potential::OneBody;
@@ -33,7 +34,9 @@ pub fn load(path: &Path, overrides: &[String]) -> Result<LoadedJob> {
 ///   distance between orbital centres and w the largest orbital width: the window then
 ///   holds every pair of orbitals with their tails (the exchange and cross terms of W
 ///   oscillate in k with period 2π/d and need transfers resolved below it), and a packet's
-///   own coherence (about its width).
+///   own coherence (about its width). In a periodic box whose content wraps around
+///   ([`ring_wraps`]), at least L + 6w: the coherence of a packet with its copy one turn
+///   away lies at y ≈ L (docs/method.md §2.5).
 /// - k_max: from the energy the dynamics can reach, k = 1.25 sqrt(k_orb² + 2mΔE/ħ²) with
 ///   k_orb = max |k₀| + 5/(2w) and ΔE the largest potential or pair energy scale, then
 ///   raised in steps of 0.5/nm until the kernel keeps less than [`KERNEL_TAIL`] of its
@@ -55,9 +58,19 @@ pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
         let lc = (2.0 * (d + 3.0 * w)).max(8.0 * w).max(30.0).min(width);
         let lc = (lc * 10.0).ceil() / 10.0;
         loaded.job.numerics.coherence_length = lc;
-        notes.push(format!(
-            "numerics.coherence_length = {lc}  # max(2 (d + 3w), 8w, 30 nm) ≤ domain width; d = {d} nm, w = {w} nm"
-        ));
+        if ring_wraps(loaded)? {
+            // The window must hold a packet's coherence with its copy one turn away.
+            let ring = ((width + 6.0 * w) * 10.0).ceil() / 10.0;
+            loaded.job.numerics.coherence_length = lc.max(ring);
+            notes.push(format!(
+                "numerics.coherence_length = {}  # L + 6w: content wraps around the ring, and the coherence of a packet with its copy one turn away (y ≈ L = {width} nm) must lie inside the window; w = {w} nm",
+                lc.max(ring)
+            ));
+        } else {
+            notes.push(format!(
+                "numerics.coherence_length = {lc}  # max(2 (d + 3w), 8w, 30 nm) ≤ domain width; d = {d} nm, w = {w} nm"
+            ));
+        }
     }
     if job::is_unset(loaded.job.domain.k_max) {
         let j = &loaded.job;
@@ -118,6 +131,32 @@ pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
             error,
         })
     })
+}
+
+/// Whether the job is a periodic box whose content can wrap around it by the end time
+/// ([`images::ring_wraps`]).
+pub fn ring_wraps(loaded: &LoadedJob) -> Result<bool> {
+    let j = &loaded.job;
+    if j.domain.boundary != job::Boundary::Periodic {
+        return Ok(false);
+    }
+    let width = j.domain.x_max - j.domain.x_min;
+    let mass = units::mass_from_electron_masses(j.particles.mass);
+    let one_body = OneBody::from_job(
+        &j.potentials,
+        width / j.domain.mesh_cells as f64,
+        mass,
+        &loaded.base_dir,
+    )?;
+    let orbitals: Vec<Gaussian> = j.orbitals.iter().map(Gaussian::from).collect();
+    Ok(images::ring_wraps(
+        &orbitals,
+        &one_body,
+        mass,
+        j.domain.x_min,
+        j.domain.x_max,
+        j.numerics.end_time,
+    ))
 }
 
 /// The largest energy the potentials and the pair term can hand a particle within

@@ -28,12 +28,22 @@ pub struct Component {
     /// reflections); (0, false) for the orbital itself.
     pub cell: i64,
     pub mirrored: bool,
+    /// A copy of a periodic box (translation by nL, `cell` = n): its coherences with the
+    /// other copies are part of the ring's state and are kept.
+    pub wrapped: bool,
 }
 
 impl Component {
-    /// Whether `o` is this component translated by a non-zero multiple of 2L.
+    /// Whether `o` is this wall image translated by a non-zero multiple of 2L (the copies of
+    /// a periodic box do not count: their mutual coherences belong to the ring's state).
     pub fn is_translate_of(&self, o: &Component) -> bool {
-        self.mirrored == o.mirrored && self.cell != o.cell
+        !self.wrapped && !o.wrapped && self.mirrored == o.mirrored && self.cell != o.cell
+    }
+
+    /// Whether the coherence between this copy of a periodic box and `o` spans more than
+    /// one turn around the ring (left out, [`periodic_copies`]).
+    pub fn too_far_round(&self, o: &Component) -> bool {
+        (self.wrapped || o.wrapped) && (self.cell - o.cell).abs() > 1
     }
 }
 
@@ -45,6 +55,7 @@ impl Component {
             g,
             cell: 0,
             mirrored: false,
+            wrapped: false,
         }
     }
 }
@@ -132,6 +143,7 @@ pub fn image_components(
                 },
                 cell: n,
                 mirrored: false,
+                wrapped: false,
             });
         }
         // Reflection about hi, then translation by a: sign −1 (n = 0 the mirror about hi,
@@ -152,10 +164,73 @@ pub fn image_components(
                 },
                 cell: n,
                 mirrored: true,
+                wrapped: false,
             });
         }
     }
     out
+}
+
+/// The orbital and its nearest copies in the periodic box [lo, hi) of width L: the ring's
+/// state is ψ_p(x) = Σ_n φ(x − nL), and φ(x − a) = e^{−i k₀ a} G(x₀ + a, k₀). In the box its
+/// Wigner function is Σ_d W[φ_d, φ_0] folded into the box; the term d is the coherence of
+/// the packet with itself d turns around the ring. The copies n = ±1 whose centre lies
+/// within `reach` of the box are kept (the orbital itself first), and with them the terms
+/// |d| ≤ 1 (`Component::too_far_round`): pieces of a packet that meet after wrapping
+/// around once. Terms |d| ≥ 2 (pieces that have travelled more than 2L apart) are left
+/// out (docs/method.md §2.5, §7).
+pub fn periodic_copies(g: &Gaussian, lo: f64, hi: f64, reach: f64) -> Vec<Component> {
+    let w = hi - lo;
+    let dist = |c: f64| (lo - c).max(c - hi).max(0.0);
+    let mut out = vec![Component::plain(*g)];
+    for n in [-1i64, 1] {
+        let a = n as f64 * w;
+        if dist(g.x0 + a) <= reach {
+            out.push(Component {
+                coef: Complex64::from_polar(1.0, -g.k0 * a),
+                g: Gaussian {
+                    x0: g.x0 + a,
+                    k0: g.k0,
+                    sigma: g.sigma,
+                },
+                cell: n,
+                mirrored: false,
+                wrapped: true,
+            });
+        }
+    }
+    out
+}
+
+/// Range max U − min U of the whole one-body potential over the box, eV: the most energy
+/// it can hand a particle (4001 samples).
+pub fn potential_range(one_body: &OneBody, lo: f64, hi: f64) -> f64 {
+    let samples = 4001usize;
+    let (mut u_lo, mut u_hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    for j in 0..samples {
+        let u = one_body.total(lo + (hi - lo) * j as f64 / (samples - 1) as f64);
+        u_lo = u_lo.min(u);
+        u_hi = u_hi.max(u);
+    }
+    u_hi - u_lo
+}
+
+/// Whether some orbital's content can wrap around the periodic box [lo, hi) by `end_time`
+/// (fs): a copy ±L lies within its [`reach`], so the ring carries copies
+/// ([`periodic_copies`]) and the coherence of a packet with its copy one turn away, at
+/// y ≈ L, takes part in the dynamics.
+pub fn ring_wraps(
+    orbitals: &[Gaussian],
+    one_body: &OneBody,
+    mass: f64,
+    lo: f64,
+    hi: f64,
+    end_time: f64,
+) -> bool {
+    let du = potential_range(one_body, lo, hi);
+    orbitals
+        .iter()
+        .any(|g| periodic_copies(g, lo, hi, reach(g, mass, du, end_time)).len() > 1)
 }
 
 /// The orbitals of a job as signed sums of Gaussians, and the walls their content can touch.
@@ -183,6 +258,19 @@ pub fn orbital_components(
     boundary: Boundary,
     end_time: f64,
 ) -> WallImages {
+    if boundary == Boundary::Periodic {
+        let du = potential_range(one_body, lo, hi);
+        return WallImages {
+            components: orbitals
+                .iter()
+                .map(|g| periodic_copies(g, lo, hi, reach(g, mass, du, end_time)))
+                .collect(),
+            touches: Touches {
+                lo: false,
+                hi: false,
+            },
+        };
+    }
     if boundary != Boundary::Reflecting {
         return WallImages {
             components: orbitals

@@ -111,7 +111,7 @@ fn pair_mix(a: &[Component], b: &[Component], same: bool) -> Result<PairMix> {
     let mut weights = Vec::new();
     for (p, ca) in a.iter().enumerate() {
         for (q, cb) in b.iter().enumerate() {
-            if same && ca.is_translate_of(cb) {
+            if (same && ca.is_translate_of(cb)) || ca.too_far_round(cb) {
                 continue;
             }
             let e = envelope(&ca.g, &cb.g);
@@ -603,6 +603,64 @@ mod tests {
             assert!((m - exact).abs() < 1e-9, "x = {x}: {m} vs {exact}");
         }
         assert!(psi(10.0).norm() < 1e-12);
+    }
+
+    /// In a periodic box of width L the ring's state is ψ_p(x) = Σ_n φ(x − nL). The Wigner
+    /// function of the orbital with its copies ±L (terms |d| ≤ 1, docs/method.md §2.5) has,
+    /// inside the box, the k-marginal |ψ_p(x)|² up to normalisation, including the
+    /// interference of the packet with its own copy at the edges. Quadrature in k against
+    /// |ψ₋₁ + ψ₀ + ψ₁|² less the left-out term 2 Re ψ₁ψ₋₁* (copies 2L apart, |d| = 2);
+    /// beside it, the distance to ψ_p summed over 11 copies stays within the left-out terms.
+    #[test]
+    fn ring_copies_give_the_periodic_density_with_its_edge_interference() {
+        let (lo, hi) = (-10.0, 10.0);
+        let g = Gaussian {
+            x0: -4.0,
+            k0: 1.1,
+            sigma: 4.0,
+        };
+        let c = crate::physics::images::periodic_copies(&g, lo, hi, 100.0);
+        assert_eq!(c.len(), 3, "the orbital and its copies ±L");
+        let w = NBodyWigner::with_components(vec![c], Statistics::Distinguishable).unwrap();
+        let copy = |x: f64, n: i32| g.psi(x - n as f64 * (hi - lo));
+        let full = |x: f64| -> f64 { (-5..=5).map(|n| copy(x, n)).sum::<Complex64>().norm_sqr() };
+        let ring = |x: f64| -> f64 {
+            (-1..=1).map(|n| copy(x, n)).sum::<Complex64>().norm_sqr()
+                - 2.0 * (copy(x, 1) * copy(x, -1).conj()).re
+        };
+        // Left out: the |d| = 2 term and every copy |n| ≥ 2 (bounded by 2|ψ_p||ψ_n| + |ψ_n|²).
+        let left_out = |x: f64| -> f64 {
+            let far: f64 = [-5, -4, -3, -2, 2, 3, 4, 5]
+                .iter()
+                .map(|&n| copy(x, n).norm())
+                .sum();
+            2.0 * (copy(x, 1) * copy(x, -1).conj()).norm() + 2.0 * full(x).sqrt() * far + far * far
+        };
+        let marginal = |x: f64| {
+            let (n, kmax) = (6000, 12.0);
+            let dk = 2.0 * kmax / n as f64;
+            (0..n)
+                .map(|j| w.value(&[x], &[-kmax + (j as f64 + 0.5) * dk]))
+                .sum::<f64>()
+                * dk
+        };
+        let (m0, r0) = (marginal(g.x0), ring(g.x0));
+        let mut edge = 0.0f64;
+        for &x in &[-9.9, -7.0, 0.0, 4.5, 8.0, 9.9] {
+            let (m, r) = (marginal(x) / m0, ring(x) / r0);
+            assert!((m - r).abs() < 1e-8, "x = {x}: {m} vs {r}");
+            assert!((full(x) - ring(x)).abs() <= left_out(x) + 1e-15, "x = {x}");
+            // Interference with the copy: |ψ₀ + ψ₁|² against |ψ₀|² + |ψ₁|².
+            let apart = (g.psi(x).norm_sqr()
+                + g.psi(x - (hi - lo)).norm_sqr()
+                + g.psi(x + (hi - lo)).norm_sqr())
+                / r0;
+            edge = edge.max((r - apart).abs());
+        }
+        assert!(
+            edge > 1e-3,
+            "the test must see the edge interference ({edge})"
+        );
     }
 
     /// Draws of the image-extended state kept inside the box reproduce the image-corrected

@@ -257,6 +257,21 @@ impl Setup {
                     period,
                     cap,
                 )
+            } else if job.domain.boundary == Boundary::Periodic {
+                // The ring's potential is periodic: a coherence reaching past an edge sees
+                // the potential continued periodically (docs/method.md §2.5).
+                let w = hi - lo;
+                let u = move |x: f64| ob.kernel_part(lo + (x - lo).rem_euclid(w));
+                KernelTable::build(
+                    &u,
+                    lo,
+                    mesh_dx,
+                    job.domain.mesh_cells,
+                    lc,
+                    rolloff,
+                    period,
+                    cap,
+                )
             } else {
                 let u = move |x: f64| ob.kernel_part(x);
                 KernelTable::build(
