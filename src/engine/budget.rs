@@ -32,6 +32,9 @@ pub struct Pass {
     /// True when the budget forced cells beyond the least merging (a coarser fixed level,
     /// or an adaptive threshold above the first rung).
     pub forced: bool,
+    /// Share of the samples in cells holding both signs that were annihilated in cells
+    /// coarser than the structure scales (`Setup::scale_level`).
+    pub beyond_scales: f64,
 }
 
 /// The cell hierarchy and the buffers of annihilation, kept for the whole run.
@@ -72,8 +75,17 @@ impl Annihilation {
                 debug_assert_eq!(report.after, out.after, "the tree's count is exact");
                 report.binning_s += out.seconds;
                 report.words_sent += out.words_sent;
+                let mixed: u64 = out.mixed_by_level.iter().sum();
+                let beyond: u64 = out.mixed_by_level[(setup.scale_level() as usize + 1)..]
+                    .iter()
+                    .sum();
                 Pass {
                     report,
+                    beyond_scales: if mixed == 0 {
+                        0.0
+                    } else {
+                        beyond as f64 / mixed as f64
+                    },
                     mean_level: out.mean_level(),
                     coarsest_level: out.coarsest_level(),
                     threshold: LADDER[out.rung].1,
@@ -97,6 +109,11 @@ impl Annihilation {
                 }
                 Pass {
                     report: total,
+                    beyond_scales: if level > setup.scale_level() {
+                        1.0
+                    } else {
+                        0.0
+                    },
                     mean_level: f64::from(level),
                     coarsest_level: level,
                     threshold: f64::NAN,

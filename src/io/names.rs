@@ -150,6 +150,9 @@ pub const ANNIHILATION_CANCELLED: Dataset = ds("annihilation_cancelled", "1");
 pub const ANNIHILATION_LEVEL: Dataset = ds("annihilation_level", "1");
 pub const ANNIHILATION_COARSEST_LEVEL: Dataset = ds("annihilation_coarsest_level", "1");
 pub const ANNIHILATION_THRESHOLD: Dataset = ds("annihilation_threshold", "1");
+/// Share of the mixed-sign samples annihilated in cells coarser than the Wigner function's
+/// structure scales (docs/method.md §3.1).
+pub const ANNIHILATION_BEYOND_SCALES: Dataset = ds("annihilation_beyond_scales", "1");
 pub const ANNIHILATION_CELL_X: Dataset = ds("annihilation_cell_x", "nm");
 pub const ANNIHILATION_CELL_K: Dataset = ds("annihilation_cell_k", "1/nm");
 

@@ -410,6 +410,28 @@ impl Setup {
         (d > 0.0).then(|| 2.0 * std::f64::consts::PI / d)
     }
 
+    /// The finest sign structure of the Wigner function known before the run, 1/nm: for
+    /// identical particles the exchange oscillation, period 2π/d in k (d the largest
+    /// distance between orbital centres); None otherwise (docs/method.md §3.1).
+    pub fn structure_period_k(&self) -> Option<f64> {
+        self.exchange_period()
+    }
+
+    /// The coarsest annihilation level whose k cells stay within half the exchange period
+    /// (a cell spanning half a period holds both signs of it): `cell_k`·2^ℓ ≤ (2π/d)/2; 0
+    /// when the finest cells are already coarser, MAX_LEVEL without identical particles.
+    /// Merges beyond it are recorded (`annihilation_beyond_scales`) and warned.
+    pub fn scale_level(&self) -> u32 {
+        let max = crate::physics::cells::MAX_LEVEL;
+        let Some(period) = self.structure_period_k() else {
+            return max;
+        };
+        (1..=max)
+            .take_while(|&l| self.cell_k * f64::from(1u32 << l) <= 0.5 * period)
+            .last()
+            .unwrap_or(0)
+    }
+
     /// Bytes per particle in the store.
     pub fn bytes_per_particle(&self) -> f64 {
         Store::bytes_per_particle(self.n) as f64

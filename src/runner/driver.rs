@@ -212,6 +212,7 @@ fn drive(
     // Most merging the budget has forced so far (warned when it grows).
     let mut forced_threshold = 0.0f64;
     let mut forced_level = 0u32;
+    let mut warned_beyond = 0.0f64;
     let obs_path = opts.out.join(names::OBSERVABLES_FILE);
     let observe = |st: &State, out: &mut ResultFile, timers: &mut Timers| {
         let t0 = Instant::now();
@@ -296,6 +297,19 @@ fn drive(
             } else {
                 pass.threshold > forced_threshold
             };
+            // Merges beyond half the exchange period: warned at 10 % of the mixed samples,
+            // and again each time the share doubles (a reporting threshold, not a bound on
+            // the bias, which the validation suite measures).
+            if pass.beyond_scales >= 0.1 && pass.beyond_scales >= 2.0 * warned_beyond {
+                warned_beyond = pass.beyond_scales;
+                if root {
+                    progress(Progress::Warning(beyond_scales_warning(
+                        setup,
+                        pass,
+                        st.step as f64 * setup.dt,
+                    )));
+                }
+            }
             if pass.forced && worse {
                 forced_level = forced_level.max(pass.coarsest_level);
                 forced_threshold = forced_threshold.max(pass.threshold);
@@ -320,6 +334,7 @@ fn drive(
                         f64::from(pass.coarsest_level),
                     ),
                     (names::ANNIHILATION_THRESHOLD, pass.threshold),
+                    (names::ANNIHILATION_BEYOND_SCALES, pass.beyond_scales),
                     (names::ANNIHILATION_CELL_X, cx),
                     (names::ANNIHILATION_CELL_K, ck),
                     (names::ANNIHILATION_TIME, st.step as f64 * setup.dt),
@@ -459,6 +474,20 @@ fn drive(
         });
     }
     Ok(Ending::Finished)
+}
+
+/// The warning of an annihilation that merged cells beyond half the exchange period.
+fn beyond_scales_warning(setup: &Setup, pass: &Pass, t: f64) -> String {
+    let ck = setup.cell_k * f64::from(1u32 << setup.scale_level());
+    format!(
+        "t = {t} fs: {:.1} % of the samples annihilated with both signs in their cell were in cells wider in k than \
+         half the exchange period 2π/d = {:.4} 1/nm (cells up to {ck:.4} 1/nm stay within it): such merges erase \
+         exchange structure and can bias the pair density; raise the sample budget (annihilation.budget = {}) and \
+         check convergence (`signfold validate --systematic` does this for the suite)",
+        100.0 * pass.beyond_scales,
+        setup.structure_period_k().unwrap_or(f64::NAN),
+        setup.budget,
+    )
 }
 
 /// The warning of an annihilation whose cells the budget forced beyond the least merging.
