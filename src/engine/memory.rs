@@ -65,11 +65,11 @@ pub fn packed_bytes_per_particle(n: usize) -> f64 {
 ///
 /// | field | per | bytes |
 /// |---|---|---|
-/// | `cell_of: Vec<u32>` | particle | 4 |
+/// | `cell_of: Vec<usize>` | particle | 8 |
 /// | `keys: Vec<u128>` (each particle's leaf key) | particle | 16 |
 /// | `fine` keys and slots, `plus`, `minus`, `leaf_key` | finest occupied cell | 16 + 16 + 16 (+ slots) |
 /// | `owned` keys and slots, `owned_plus`, `owned_minus` | finest cell owned | 16 + 16 (+ slots) |
-/// | `tree.nodes: Vec<Node>` (u64, u64, u32, u32, u128, u32: 64 with alignment) | node of any level | 64 |
+/// | `tree.nodes: Vec<Node>` (u64, u64, usize, u64, u128, u16: 64 with alignment) | node of any level | 64 |
 /// | `tree.leaf: Vec<[u8; RUNGS]>` | node of any level | `RUNGS` |
 /// | `tree.tables` keys and slots | node above the finest level | 16 (+ slots) |
 ///
@@ -99,9 +99,10 @@ pub struct AnnihilatorBytes {
     pub per_cell_adaptive: f64,
 }
 
-/// Bytes of one merge-tree node and its leaf marks (`engine::resolution`: `Node` of two
-/// u64, two u32, a u128 and a u32, padded to 64; one u8 per rung).
-pub const TREE_NODE_BYTES: f64 = 64.0 + crate::engine::resolution::RUNGS as f64;
+/// Bytes of one merge-tree node and its leaf marks (`engine::resolution`: `Node` of three
+/// u64, a usize, a u128 and a u16, padded to 64; one u8 per rung).
+pub const TREE_NODE_BYTES: f64 =
+    crate::engine::resolution::NODE_BYTES as f64 + crate::engine::resolution::RUNGS as f64;
 
 /// The per-particle and per-cell byte counts of today's annihilation buffers (see the
 /// table of [`AnnihilatorBytes`]).
@@ -119,7 +120,7 @@ pub fn annihilator_bytes() -> AnnihilatorBytes {
         per_slot: 3.0 * u64_b,
         // owned keys, owned_plus + owned_minus, owned_holders, sent_cells, entry_cell.
         per_cell_owner: u128_b + 2.0 * u64_b + 2.0 * u64_b + usize_b + usize_b,
-        per_particle_adaptive: size_of::<u32>() as f64 + u128_b,
+        per_particle_adaptive: usize_b + u128_b,
         per_cell_adaptive: (u128_b + 2.0 * u64_b + u128_b) + (u128_b + 2.0 * u64_b),
     }
 }

@@ -1,7 +1,7 @@
 //! The MPI implementation of [`Comm`] (rsmpi), and the node-local view used to share a
 //! node's cores among its ranks.
 
-use crate::engine::comm::Comm;
+use crate::engine::comm::{Comm, Rounds};
 use mpi::collective::SystemOperation;
 use mpi::datatype::{Partition, PartitionMut};
 use mpi::topology::{Communicator, SimpleCommunicator};
@@ -51,17 +51,6 @@ impl World {
     }
 }
 
-fn displacements(counts: &[i32]) -> Vec<i32> {
-    counts
-        .iter()
-        .scan(0i32, |acc, &c| {
-            let d = *acc;
-            *acc += c;
-            Some(d)
-        })
-        .collect()
-}
-
 impl Comm for World {
     fn as_any(&self) -> &dyn std::any::Any {
         self
@@ -86,9 +75,10 @@ impl Comm for World {
             .all_reduce_into(&v, &mut out, SystemOperation::max());
         out
     }
-    /// Messages of any length (64-bit counts): sent in rounds of at most `chunk_words` words
-    /// per rank pair, and at most i32::MAX / P, so that every count and displacement of a
-    /// round fits MPI's 32-bit `int`. Every rank takes part in the same number of rounds.
+    /// Messages of any length (64-bit counts): sent in the rounds of [`Rounds`] (at most
+    /// `chunk_words` words per rank pair and i32::MAX / P), so that every count and
+    /// displacement of a round fits MPI's 32-bit `int`. Every rank takes part in the same
+    /// number of rounds.
     fn exchange(&self, send: &[Vec<u64>]) -> Vec<Vec<u64>> {
         let p = self.size();
         assert_eq!(send.len(), p);
@@ -96,13 +86,8 @@ impl Comm for World {
         let mut recv_counts = vec![0u64; p];
         self.world
             .all_to_all_into(&send_counts[..], &mut recv_counts[..]);
-        let per_pair = self.chunk_words.min(i32::MAX as usize / p).max(1) as u64;
-        let mine = send_counts
-            .iter()
-            .chain(&recv_counts)
-            .map(|&c| c.div_ceil(per_pair))
-            .max()
-            .unwrap_or(0);
+        let plan = Rounds::new(self.chunk_words as u64, p);
+        let mine = plan.needed(&send_counts).max(plan.needed(&recv_counts));
         let mut rounds = mine;
         self.world
             .all_reduce_into(&mine, &mut rounds, SystemOperation::max());
@@ -110,39 +95,23 @@ impl Comm for World {
             .iter()
             .map(|&c| Vec::with_capacity(c as usize))
             .collect();
-        // The part of a message of `total` words that goes in round `round`.
-        let part = |total: u64, round: u64| -> (usize, usize) {
-            let from = (round * per_pair).min(total);
-            (from as usize, (total - from).min(per_pair) as usize)
-        };
         for round in 0..rounds {
-            let sc: Vec<i32> = send_counts
-                .iter()
-                .map(|&c| part(c, round).1 as i32)
-                .collect();
-            let rc: Vec<i32> = recv_counts
-                .iter()
-                .map(|&c| part(c, round).1 as i32)
-                .collect();
-            let flat: Vec<u64> = send
-                .iter()
-                .zip(&send_counts)
-                .flat_map(|(v, &c)| {
-                    let (from, len) = part(c, round);
-                    v[from..from + len].iter().copied()
-                })
-                .collect();
-            let sd = displacements(&sc);
-            let rd = displacements(&rc);
-            let mut recv = vec![0u64; rc.iter().map(|&c| c as usize).sum()];
+            let sl = plan.layout(&send_counts, round);
+            let rl = plan.layout(&recv_counts, round);
+            let mut flat: Vec<u64> = Vec::with_capacity(sl.total());
+            for (r, v) in send.iter().enumerate() {
+                let from = sl.from[r] as usize;
+                flat.extend_from_slice(&v[from..from + sl.counts[r] as usize]);
+            }
+            let mut recv = vec![0u64; rl.total()];
             {
-                let sp = Partition::new(&flat[..], &sc[..], &sd[..]);
-                let mut rp = PartitionMut::new(&mut recv[..], &rc[..], &rd[..]);
+                let sp = Partition::new(&flat[..], &sl.counts[..], &sl.displs[..]);
+                let mut rp = PartitionMut::new(&mut recv[..], &rl.counts[..], &rl.displs[..]);
                 self.world.all_to_all_varcount_into(&sp, &mut rp);
             }
             for (r, o) in out.iter_mut().enumerate() {
-                let from = rd[r] as usize;
-                o.extend_from_slice(&recv[from..from + rc[r] as usize]);
+                let from = rl.displs[r] as usize;
+                o.extend_from_slice(&recv[from..from + rl.counts[r] as usize]);
             }
         }
         out

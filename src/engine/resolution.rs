@@ -58,6 +58,8 @@ pub const LADDER: [(u32, f64); 12] = [
 ];
 pub const RUNGS: usize = LADDER.len();
 const LEVELS: usize = MAX_LEVEL as usize + 1;
+/// Bytes of one merge-tree node (the memory model counts it per node of every level).
+pub const NODE_BYTES: usize = std::mem::size_of::<Node>();
 /// Marks "not a leaf on this rung" in per-node leaf levels.
 const NONE: u8 = u8::MAX;
 /// Fixed-point scale of the χ² terms (2⁻²⁰): integer sums do not depend on their order.
@@ -104,10 +106,11 @@ impl Outcome {
 struct Node {
     plus: u64,
     minus: u64,
-    /// Index of the parent node one level up.
-    parent: u32,
+    /// Index of the parent node one level up (full width: an owner may hold more than
+    /// 2^32 cells).
+    parent: usize,
     /// Occupied children (for the degrees of freedom).
-    kids: u32,
+    kids: u64,
     /// Σ over children of (T·mᵢ − Q·tᵢ)²/tᵢ in units of 2⁻²⁰.
     chi_fixed: u128,
     /// Bit r: mergeable on rung r (all descendants merged and no structure at z ≤ Z[r]).
@@ -173,10 +176,10 @@ impl Tree {
                 p.minus += node.minus;
                 p.kids += 1;
                 p.mask &= node.mask;
-                node.parent = j as u32;
+                node.parent = j;
             }
             for node in children.iter() {
-                let p = &mut parents[node.parent as usize];
+                let p = &mut parents[node.parent];
                 let (pp, qq) = (p.plus as f64, p.minus as f64);
                 if p.plus == 0 || p.minus == 0 || p.kids < 2 {
                     continue;
@@ -192,7 +195,7 @@ impl Tree {
                 }
                 let (pp, qq) = (p.plus as f64, p.minus as f64);
                 let chi2 = p.chi_fixed as f64 / FIXED / (pp * qq);
-                let z = wilson_hilferty(chi2, f64::from(p.kids - 1));
+                let z = wilson_hilferty(chi2, (p.kids - 1) as f64);
                 let mut bits = 0u16;
                 for (r, &(cap, zr)) in LADDER.iter().enumerate() {
                     if (l as u32) < cap && z <= zr {
@@ -213,7 +216,7 @@ impl Tree {
                 let mut out = [NONE; RUNGS];
                 for (r, o) in out.iter_mut().enumerate() {
                     let from_parent = if l < MAX_LEVEL as usize {
-                        upper[0][node.parent as usize][r]
+                        upper[0][node.parent][r]
                     } else {
                         NONE
                     };
@@ -245,7 +248,7 @@ pub struct Resolution {
     fine: CellTable,
     plus: Vec<u64>,
     minus: Vec<u64>,
-    cell_of: Vec<u32>,
+    cell_of: Vec<usize>,
     /// Owner side: global counts of the finest cells this rank owns.
     owned: CellTable,
     owned_plus: Vec<u64>,
@@ -288,7 +291,7 @@ impl Resolution {
             } else {
                 self.minus[c] += 1;
             }
-            self.cell_of.push(c as u32);
+            self.cell_of.push(c);
         }
         let cells = self.fine.len();
         // 2. Global counts at the owners of the roots (the coarsest cells), the tree there.
@@ -366,7 +369,7 @@ impl Resolution {
             .extend((0..cells).map(|c| mesh.lift(self.fine.keys[c], u32::from(levels[c]))));
         self.keys.clear();
         self.keys
-            .extend(self.cell_of.iter().map(|&c| self.leaf_key[c as usize]));
+            .extend(self.cell_of.iter().map(|&c| self.leaf_key[c]));
         let mut mixed_by_level = [0u64; LEVELS];
         for (l, m) in mixed_by_level.iter_mut().enumerate() {
             *m = counts[RUNGS + rung * LEVELS + l] as u64;
@@ -410,6 +413,22 @@ mod tests {
     /// Wilson–Hilferty: χ² at its median-ish mean df gives z ≈ 0; the 0.975 quantile of
     /// χ²(1) = 5.0239 and of χ²(10) = 20.483 give z ≈ 1.96 (tabulated quantiles, from
     /// memory of standard tables; the transform is accurate to ~0.1 at df = 1).
+    /// Tree nodes index their parents and count their children at full width (an owner
+    /// may hold more than 2^32 cells of one level) without growing past the 64 bytes the
+    /// memory model counts per node.
+    #[test]
+    fn node_indices_are_full_width() {
+        let far = (1usize << 32) + 9;
+        let n = Node {
+            parent: far,
+            kids: u64::from(u32::MAX) + 2,
+            ..Node::default()
+        };
+        assert_eq!(n.parent, far);
+        assert_eq!(n.kids - 1, 1u64 << 32);
+        assert_eq!(NODE_BYTES, 64);
+    }
+
     #[test]
     fn wilson_hilferty_matches_tabulated_quantiles() {
         assert!((wilson_hilferty(20.483, 10.0) - 1.96).abs() < 0.02);

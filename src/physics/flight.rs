@@ -264,15 +264,24 @@ fn flight<const FREE: bool>(
     }
 }
 
+/// Particles per parallel task of [`advance_in_place`].
+const CHUNK: usize = 2048;
+
+/// Store position of particle `p` of task `chunk`: chunk·[`CHUNK`] + p, a full-width
+/// index (a store may hold more than 2^32 samples).
+#[inline]
+fn slot(chunk: usize, p: usize) -> usize {
+    chunk * CHUNK + p
+}
+
 /// Advance every particle of `store` through synchronisation interval `interval`
 /// (from t = interval·dt to (interval + 1)·dt), in place: survivors keep their slot (the
 /// store is compacted only when some left), children are appended. Returns the tallies.
 pub fn advance_in_place(setup: &Setup, store: &mut Store, interval: u64) -> Tally {
     let n = setup.n;
     let groups = setup.groups as usize;
-    const CHUNK: usize = 2048;
     let free = setup.one_body.force.is_zero();
-    let parts: Vec<(Store, Vec<u32>, Tally)> = store
+    let parts: Vec<(Store, Vec<usize>, Tally)> = store
         .x
         .par_chunks_mut(CHUNK * n)
         .zip(store.k.par_chunks_mut(CHUNK * n))
@@ -308,7 +317,7 @@ pub fn advance_in_place(setup: &Setup, store: &mut Store, interval: u64) -> Tall
                     xs[p * n..(p + 1) * n].copy_from_slice(&start.x[..n]);
                     ks[p * n..(p + 1) * n].copy_from_slice(&start.k[..n]);
                 } else {
-                    gone.push((c * CHUNK + p) as u32);
+                    gone.push(slot(c, p));
                 }
             }
             (children, gone, tally)
@@ -320,7 +329,7 @@ pub fn advance_in_place(setup: &Setup, store: &mut Store, interval: u64) -> Tall
         let mut keep = vec![true; store.len()];
         for (_, g, _) in &parts {
             for &p in g {
-                keep[p as usize] = false;
+                keep[p] = false;
             }
         }
         store.retain(&keep);
@@ -339,4 +348,26 @@ pub fn advance(setup: &Setup, store: &Store, interval: u64) -> (Store, Tally) {
     let mut out = store.clone();
     let tally = advance_in_place(setup, &mut out, interval);
     (out, tally)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Removed particles are recorded at full width: past 2^32 (the old u32 list wrapped
+    /// there, removing particle p − 2^32 instead) positions stay exact and consecutive
+    /// across task boundaries. No store of that size is allocated.
+    #[test]
+    fn removed_slots_past_u32() {
+        let c = (1usize << 32) / CHUNK; // the first task past 2^32
+        assert_eq!(slot(c, 0), 1usize << 32);
+        assert_eq!(slot(c, 17) as u64, (1u64 << 32) + 17);
+        assert_eq!(slot(c - 1, CHUNK - 1) + 1, slot(c, 0));
+        let far = 3 * c + 5; // ~1.3·10¹⁰
+        assert_eq!(
+            slot(far, CHUNK - 1) as u64,
+            far as u64 * CHUNK as u64 + CHUNK as u64 - 1
+        );
+        assert_ne!(slot(c, 17), slot(0, 17));
+    }
 }
