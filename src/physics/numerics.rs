@@ -244,47 +244,31 @@ impl Setup {
         let cap = cap_of(period);
         let table1 = needs_table1.then(|| {
             let ob = one_body.clone();
-            if reflecting && touched {
-                let t = walls.touches;
-                let u = move |y: f64| images::kernel_potential_with_walls(&ob, lo, hi, t, y);
-                KernelTable::build(
-                    &u,
-                    lo,
-                    mesh_dx,
-                    job.domain.mesh_cells,
-                    lc,
-                    rolloff,
-                    period,
-                    cap,
-                )
-            } else if job.domain.boundary == Boundary::Periodic {
-                // The ring's potential is periodic: a coherence reaching past an edge sees
-                // the potential continued periodically (docs/method.md §2.5).
-                let w = hi - lo;
-                let u = move |x: f64| ob.kernel_part(lo + (x - lo).rem_euclid(w));
-                KernelTable::build(
-                    &u,
-                    lo,
-                    mesh_dx,
-                    job.domain.mesh_cells,
-                    lc,
-                    rolloff,
-                    period,
-                    cap,
-                )
-            } else {
-                let u = move |x: f64| ob.kernel_part(x);
-                KernelTable::build(
-                    &u,
-                    lo,
-                    mesh_dx,
-                    job.domain.mesh_cells,
-                    lc,
-                    rolloff,
-                    period,
-                    cap,
-                )
-            }
+            let t = walls.touches;
+            let w = hi - lo;
+            let periodic = job.domain.boundary == Boundary::Periodic;
+            // Beyond the edges: the folded potential of touched walls (§2.5), the periodic
+            // continuation of a ring (a coherence reaching past an edge sees the potential
+            // one turn on), else the kernel part continued as it is.
+            let u = move |y: f64| {
+                if reflecting && touched {
+                    images::kernel_potential_with_walls(&ob, lo, hi, t, y)
+                } else if periodic {
+                    ob.kernel_part(lo + (y - lo).rem_euclid(w))
+                } else {
+                    ob.kernel_part(y)
+                }
+            };
+            KernelTable::build(
+                &u,
+                lo,
+                mesh_dx,
+                job.domain.mesh_cells,
+                lc,
+                rolloff,
+                period,
+                cap,
+            )
         });
         let table2 = (n >= 2).then_some(()).and(pair).map(|p| {
             // Periodic: minimal-image separations lie in [−L/2, L/2]; otherwise [−L, L].
