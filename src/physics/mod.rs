@@ -16,4 +16,5 @@ pub mod orbitals;
 pub mod particles;
 pub mod potential;
 pub mod rng;
+pub mod transfer;
 pub mod units;
