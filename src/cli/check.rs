@@ -387,6 +387,7 @@ pub fn warnings(setup: &Setup) -> Vec<String> {
                 ));
         }
     }
+    out.extend(setup.coherence_warnings());
     let sep = setup
         .orbitals
         .iter()

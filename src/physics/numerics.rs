@@ -9,6 +9,7 @@ use crate::physics::kernel::KernelTable;
 use crate::physics::orbitals::Gaussian;
 use crate::physics::particles::Store;
 use crate::physics::potential::{OneBody, PairPotential};
+use crate::physics::resonance;
 use crate::physics::units;
 use anyhow::{Result, anyhow};
 
@@ -393,6 +394,19 @@ impl Setup {
         let d = c.iter().cloned().fold(f64::NEG_INFINITY, f64::max)
             - c.iter().cloned().fold(f64::INFINITY, f64::min);
         (d > 0.0).then(|| 2.0 * std::f64::consts::PI / d)
+    }
+
+    /// Warnings for a coherence length too short for a transmission resonance of this
+    /// one-body scattering job (`physics::resonance`), with the numbers; empty otherwise.
+    /// The library returns them; `check` and `run` print them.
+    pub fn coherence_warnings(&self) -> Vec<String> {
+        resonance::coherence_warnings(
+            &self.job,
+            &self.one_body,
+            self.lc,
+            self.rolloff,
+            self.hi - self.lo,
+        )
     }
 
     /// Bytes per particle in the store.
