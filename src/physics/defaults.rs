@@ -315,6 +315,7 @@ mod tests {
 
     #[test]
     fn the_default_coherence_length_of_the_double_barrier_meets_its_resonance() {
+        // The job leaves L_c unset (and `unset` would drop it if it did not).
         let mut loaded = validation_job("v02-double-barrier.toml", true, &[]);
         resolve(&mut loaded).unwrap();
         let one_body = one_body_of(&loaded).unwrap();
@@ -339,8 +340,11 @@ mod tests {
         // Measured (noise-free density-matrix solution of the windowed equation, earlier
         // sessions): transmitted norm 0.0806 at L_c = 60 nm and 0.05964 at 150 nm against the
         // exact 0.05951. The rule must flag the first and accept the second.
-        let loaded = validation_job("v02-double-barrier.toml", false, &[]);
-        assert_eq!(loaded.job.numerics.coherence_length, 60.0);
+        let loaded = validation_job(
+            "v02-double-barrier.toml",
+            false,
+            &["numerics.coherence_length=60"],
+        );
         let warnings = Setup::new(&loaded).unwrap().coherence_warnings();
         assert_eq!(warnings.len(), 1, "{warnings:?}");
         assert!(
