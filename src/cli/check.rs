@@ -387,6 +387,7 @@ pub fn warnings(setup: &Setup) -> Vec<String> {
                 ));
         }
     }
+    out.extend(setup.coherence_warnings());
     let sep = setup
         .orbitals
         .iter()
@@ -400,22 +401,6 @@ pub fn warnings(setup: &Setup) -> Vec<String> {
         out.push(format!(
             "coherence length {} nm is below twice the largest orbital separation ({sep} nm): exchange coherences longer than \
              L_c alias onto shorter ones (physics reference: pair density errors of 1–20 % at L_c = 1.2–1.8 × separation)",
-            setup.lc
-        ));
-    }
-    let copies: usize = setup
-        .orbital_components
-        .iter()
-        .flatten()
-        .filter(|c| c.wrapped)
-        .count();
-    let w = setup.orbitals.iter().map(|o| o.sigma).fold(0.0, f64::max);
-    let ring = setup.hi - setup.lo + 6.0 * w;
-    if copies > 0 && setup.lc < ring {
-        out.push(format!(
-            "content wraps around the periodic box, but the coherence length {} nm is below L + 6w = {ring} nm: the \
-             coherence of a packet with its copy one turn away (y ≈ L) lies outside the window and feels no potential, \
-             so pieces that meet after wrapping around interfere wrongly (docs/method.md §2.5)",
             setup.lc
         ));
     }

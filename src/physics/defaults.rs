@@ -5,9 +5,11 @@
 
 use crate::config::job::{self, LoadedJob, Pair, PotentialTerm};
 use crate::physics::images;
+use crate::physics::numerics;
 use crate::physics::numerics::Setup;
 use crate::physics::orbitals::Gaussian;
 use crate::physics::potential::OneBody;
+use crate::physics::resonance;
 use crate::physics::units;
 use anyhow::Result;
 use std::path::Path;
@@ -34,9 +36,13 @@ pub fn load(path: &Path, overrides: &[String]) -> Result<LoadedJob> {
 ///   distance between orbital centres and w the largest orbital width: the window then
 ///   holds every pair of orbitals with their tails (the exchange and cross terms of W
 ///   oscillate in k with period 2π/d and need transfers resolved below it), and a packet's
-///   own coherence (about its width). In a periodic box whose content wraps around
-///   ([`ring_wraps`]), at least L + 6w: the coherence of a packet with its copy one turn
-///   away lies at y ≈ L (docs/method.md §2.5).
+///   own coherence (about its width). For one-body scattering through a resonant
+///   structure, at least what the narrowest weighty resonance needs
+///   (`physics::resonance`: the window passes coherences up to Y in full, with Y the
+///   smallest reach at which the bound on the transmitted-norm bias is 10⁻³), capped at the
+///   domain width and at what the kernel tables' memory allows.
+///   In a periodic box whose content wraps around ([`ring_wraps`]), at least L + 6w:
+///   the coherence of a packet with its copy one turn away lies at y ≈ L (docs/method.md §2.5).
 /// - k_max: from the energy the dynamics can reach, k = 1.25 sqrt(k_orb² + 2mΔE/ħ²) with
 ///   k_orb = max |k₀| + 5/(2w) and ΔE the largest potential or pair energy scale, then
 ///   raised in steps of 0.5/nm until the kernel keeps less than [`KERNEL_TAIL`] of its
@@ -55,21 +61,67 @@ pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
         - centres.iter().cloned().fold(f64::INFINITY, f64::min);
     let width = j.domain.x_max - j.domain.x_min;
     if job::is_unset(j.numerics.coherence_length) {
-        let lc = (2.0 * (d + 3.0 * w)).max(8.0 * w).max(30.0).min(width);
+        let base = (2.0 * (d + 3.0 * w)).max(8.0 * w).max(30.0);
+        let one_body = one_body_of(loaded)?;
+        let needed = resonance::resonances(&loaded.job, &one_body)
+            .first()
+            .copied();
+        let wanted = needed.map_or(base, |r| base.max(r.coherence_length));
+        let mut lc = wanted.min(width);
+        // The tables grow with L_c: a resonance may not ask for more than fits in memory
+        // (the limit `Setup::new` enforces), nor shorten L_c below the orbital rule.
+        let mut memory_capped = false;
+        while lc > base && !fits_in_memory(loaded, lc, d + 10.0 * w) {
+            lc = (0.9 * lc).max(base.min(width));
+            memory_capped = true;
+        }
         let lc = (lc * 10.0).ceil() / 10.0;
         loaded.job.numerics.coherence_length = lc;
+        let mut note = format!(
+            "numerics.coherence_length = {lc}  # max(2 (d + 3w), 8w, 30 nm) ≤ domain width; d = {d} nm, w = {w} nm"
+        );
+        if let Some(r) = needed.filter(|r| r.coherence_length <= base) {
+            note.push_str(&format!(
+                "; enough for the transmission resonance at k = {:.4}/nm of width Γ = {:.4}/nm (FWHM), which \
+                 needs L_c ≥ {:.1} nm (docs/method.md §2.6)",
+                r.peak.k,
+                r.peak.width(),
+                r.coherence_length
+            ));
+        }
+        if let Some(r) = needed.filter(|r| r.coherence_length > base) {
+            note = format!(
+                "numerics.coherence_length = {lc}  # the resonance rule (docs/method.md §2.6): orbital.{} meets a \
+                 transmission resonance at k = {:.4}/nm of width Γ = {:.4}/nm (FWHM) carrying {:.4} of its \
+                 probability; the window must pass coherences up to {:.1} nm for a transmitted-norm bias ≤ {:.0e}, so \
+                 L_c ≥ {:.1} nm (the orbital rule max(2 (d + 3w), 8w, 30 nm) gives {base} nm){}",
+                r.orbital,
+                r.peak.k,
+                r.peak.width(),
+                r.weight,
+                r.reach,
+                resonance::TOLERANCE,
+                r.coherence_length,
+                if memory_capped {
+                    format!("; capped at {lc} nm by the memory of the kernel tables")
+                } else if wanted > width {
+                    format!("; capped at the domain width {width} nm")
+                } else {
+                    String::new()
+                }
+            );
+        }
+        notes.push(note);
         if ring_wraps(loaded)? {
             // The window must hold a packet's coherence with its copy one turn away.
             let ring = ((width + 6.0 * w) * 10.0).ceil() / 10.0;
-            loaded.job.numerics.coherence_length = lc.max(ring);
-            notes.push(format!(
-                "numerics.coherence_length = {}  # L + 6w: content wraps around the ring, and the coherence of a packet with its copy one turn away (y ≈ L = {width} nm) must lie inside the window; w = {w} nm",
-                lc.max(ring)
-            ));
-        } else {
-            notes.push(format!(
-                "numerics.coherence_length = {lc}  # max(2 (d + 3w), 8w, 30 nm) ≤ domain width; d = {d} nm, w = {w} nm"
-            ));
+            if ring > lc {
+                loaded.job.numerics.coherence_length = ring;
+                notes.pop();
+                notes.push(format!(
+                    "numerics.coherence_length = {ring}  # L + 6w: content wraps around the ring, and the coherence of a packet with its copy one turn away (y ≈ L = {width} nm) must lie inside the window; w = {w} nm"
+                ));
+            }
         }
     }
     if job::is_unset(loaded.job.domain.k_max) {
@@ -205,6 +257,48 @@ fn energy_scale(loaded: &LoadedJob, reach: f64) -> f64 {
     de
 }
 
+/// The job's one-body potential (kernel part and forces).
+fn one_body_of(loaded: &LoadedJob) -> Result<OneBody> {
+    let j = &loaded.job;
+    OneBody::from_job(
+        &j.potentials,
+        (j.domain.x_max - j.domain.x_min) / j.domain.mesh_cells as f64,
+        units::mass_from_electron_masses(j.particles.mass),
+        &loaded.base_dir,
+    )
+}
+
+/// Whether the fixed structures of a rank (`numerics::fixed_sizes`) at coherence length `lc`
+/// fit in half of this machine's memory, the limit `numerics::check_sizes` enforces; an
+/// unset k_max is taken as its first estimate (the k_max rule's starting value).
+fn fits_in_memory(loaded: &LoadedJob, lc: f64, reach: f64) -> bool {
+    let mut job = loaded.job.clone();
+    job.numerics.coherence_length = lc;
+    if job::is_unset(job.domain.k_max) {
+        let k_orb = job
+            .orbitals
+            .iter()
+            .map(|o| {
+                let g = Gaussian::from(o);
+                g.k0.abs() + 5.0 / (2.0 * g.sigma)
+            })
+            .fold(0.0, f64::max);
+        let c = units::HBAR * units::HBAR
+            / (2.0 * units::mass_from_electron_masses(job.particles.mass));
+        let de = energy_scale(loaded, reach);
+        job.domain.k_max = 1.25 * (k_orb * k_orb + de / c).sqrt();
+    }
+    if job::is_unset(job.numerics.sync_step) {
+        job.numerics.sync_step = job.numerics.end_time / 20.0;
+    }
+    let pair = !matches!(job.pair, Pair::None);
+    let total: f64 = numerics::fixed_sizes(&job, true, pair, rayon::current_num_threads())
+        .iter()
+        .map(|s| s.2)
+        .sum();
+    total <= 0.5 * numerics::machine_memory()
+}
+
 /// Largest fraction of kernel weight beyond the cap over the one-body and pair tables.
 fn kernel_tail(loaded: &LoadedJob) -> Result<f64> {
     let mut l = loaded.clone();
@@ -238,6 +332,88 @@ fn round_down_125(v: f64) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// A validation job (jobs/validation/), its coherence length removed when `unset`, with
+    /// `set` overrides, before the defaults are derived.
+    fn validation_job(name: &str, unset: bool, set: &[&str]) -> LoadedJob {
+        let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("jobs/validation");
+        let text = std::fs::read_to_string(dir.join(name)).expect("a validation job");
+        let text: String = text
+            .lines()
+            .filter(|l| !(unset && l.trim_start().starts_with("coherence_length")))
+            .map(|l| format!("{l}\n"))
+            .collect();
+        let set: Vec<String> = set.iter().map(|s| s.to_string()).collect();
+        job::from_text(&text, name, dir, &set).expect("a valid job")
+    }
+
+    /// The orbital rule alone, max(2 (d + 3w), 8w, 30 nm), for a one-orbital job.
+    fn orbital_rule(loaded: &LoadedJob) -> f64 {
+        let g = Gaussian::from(&loaded.job.orbitals[0]);
+        (6.0 * g.sigma).max(8.0 * g.sigma).max(30.0)
+    }
+
+    #[test]
+    fn the_default_coherence_length_of_the_double_barrier_meets_its_resonance() {
+        // The job leaves L_c unset (and `unset` would drop it if it did not).
+        let mut loaded = validation_job("v02-double-barrier.toml", true, &[]);
+        resolve(&mut loaded).unwrap();
+        let one_body = one_body_of(&loaded).unwrap();
+        let res = resonance::resonances(&loaded.job, &one_body);
+        // The quasi-bound level between the two barriers: one resonance in the packet's
+        // range (k₀ ± 5/(2σ) = 0.45 ± 0.125/nm), below the barrier tops.
+        assert_eq!(res.len(), 1, "{res:?}");
+        let lc = loaded.job.numerics.coherence_length;
+        assert!(
+            lc >= res[0].coherence_length,
+            "default L_c = {lc} nm below the resonance rule's {} nm",
+            res[0].coherence_length
+        );
+        assert!(loaded.text.contains("numerics.coherence_length"));
+        // And a job that keeps that L_c gets no warning.
+        let setup = Setup::new(&loaded).unwrap();
+        assert!(setup.coherence_warnings().is_empty());
+    }
+
+    #[test]
+    fn a_coherence_length_too_short_for_the_resonance_is_warned_about() {
+        // Measured (noise-free density-matrix solution of the windowed equation, earlier
+        // sessions): transmitted norm 0.0806 at L_c = 60 nm and 0.05964 at 150 nm against the
+        // exact 0.05951. The rule must flag the first and accept the second.
+        let loaded = validation_job(
+            "v02-double-barrier.toml",
+            false,
+            &["numerics.coherence_length=60"],
+        );
+        let warnings = Setup::new(&loaded).unwrap().coherence_warnings();
+        assert_eq!(warnings.len(), 1, "{warnings:?}");
+        assert!(
+            warnings[0].contains("L_c ≥") && warnings[0].contains("the job has L_c = 60 nm"),
+            "{}",
+            warnings[0]
+        );
+        let loaded = validation_job(
+            "v02-double-barrier.toml",
+            false,
+            &["numerics.coherence_length=150"],
+        );
+        assert!(Setup::new(&loaded).unwrap().coherence_warnings().is_empty());
+    }
+
+    #[test]
+    fn jobs_without_resonances_are_not_asked_for_more() {
+        // A single smoothed barrier and a graded step: T rises monotonically through the
+        // packet's range, nothing to resolve beyond the orbital rule.
+        for name in ["v01-barrier.toml", "v13-table.toml"] {
+            let mut loaded = validation_job(name, true, &[]);
+            let one_body = one_body_of(&loaded).unwrap();
+            let res = resonance::resonances(&loaded.job, &one_body);
+            assert!(res.is_empty(), "{name}: {res:?}");
+            let base = orbital_rule(&loaded);
+            resolve(&mut loaded).unwrap();
+            assert!(loaded.job.numerics.coherence_length <= (base * 10.0).ceil() / 10.0);
+        }
+    }
 
     #[test]
     fn sync_steps_are_round() {

@@ -15,5 +15,7 @@ pub mod numerics;
 pub mod orbitals;
 pub mod particles;
 pub mod potential;
+pub mod resonance;
 pub mod rng;
+pub mod transfer;
 pub mod units;

@@ -9,6 +9,7 @@ use crate::physics::kernel::KernelTable;
 use crate::physics::orbitals::Gaussian;
 use crate::physics::particles::Store;
 use crate::physics::potential::{OneBody, PairPotential};
+use crate::physics::resonance;
 use crate::physics::units;
 use anyhow::{Result, anyhow};
 
@@ -414,6 +415,38 @@ impl Setup {
             .take_while(|&l| self.cell_k * f64::from(1u32 << l) <= 0.5 * period)
             .last()
             .unwrap_or(0)
+    }
+
+    /// Warnings for a coherence length too short for the physics, with the numbers: a
+    /// transmission resonance of a one-body scattering job (`physics::resonance`), or the
+    /// copy one turn around a ring whose content wraps (docs/method.md §2.5).
+    /// The library returns them; `check` and `run` print them.
+    pub fn coherence_warnings(&self) -> Vec<String> {
+        let mut out = resonance::coherence_warnings(
+            &self.job,
+            &self.one_body,
+            self.lc,
+            self.rolloff,
+            self.hi - self.lo,
+        );
+        // A ring whose content wraps: the copy one turn away must lie inside the window.
+        let copies: usize = self
+            .orbital_components
+            .iter()
+            .flatten()
+            .filter(|c| c.wrapped)
+            .count();
+        let w = self.orbitals.iter().map(|o| o.sigma).fold(0.0, f64::max);
+        let ring = self.hi - self.lo + 6.0 * w;
+        if copies > 0 && self.lc < ring {
+            out.push(format!(
+                "content wraps around the periodic box, but the coherence length {} nm is below L + 6w = {ring} nm: the \
+                 coherence of a packet with its copy one turn away (y ≈ L) lies outside the window and feels no potential, \
+                 so pieces that meet after wrapping around interfere wrongly (docs/method.md §2.5)",
+                self.lc
+            ));
+        }
+        out
     }
 
     /// Bytes per particle in the store.

@@ -68,6 +68,10 @@ pub fn run(
     let (st, init) = initial_state(setup, comm)?;
     timers.add(Phase::Initial, t0);
     if root {
+        // A coherence length too short for a resonance the job's packet meets.
+        for w in setup.coherence_warnings() {
+            progress(Progress::Warning(w));
+        }
         progress(Progress::Started {
             samples: init.particles,
             draws: init.draws,
