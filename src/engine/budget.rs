@@ -76,7 +76,8 @@ impl Annihilation {
                 report.binning_s += out.seconds;
                 report.words_sent += out.words_sent;
                 let mixed: u64 = out.mixed_by_level.iter().sum();
-                let beyond: u64 = out.mixed_by_level[(setup.scale_level() as usize + 1)..]
+                let beyond: u64 = out.mixed_by_level
+                    [(setup.scale_level(crate::physics::cells::MAX_LEVEL) as usize + 1)..]
                     .iter()
                     .sum();
                 Pass {
@@ -109,7 +110,7 @@ impl Annihilation {
                 }
                 Pass {
                     report: total,
-                    beyond_scales: if level > setup.scale_level() {
+                    beyond_scales: if level > setup.scale_level(crate::physics::cells::MAX_LEVEL) {
                         1.0
                     } else {
                         0.0

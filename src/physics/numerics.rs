@@ -404,10 +404,10 @@ impl Setup {
 
     /// The coarsest annihilation level whose k cells stay within half the exchange period
     /// (a cell spanning half a period holds both signs of it): `cell_k`·2^ℓ ≤ (2π/d)/2; 0
-    /// when the finest cells are already coarser, MAX_LEVEL without identical particles.
+    /// when the finest cells are already coarser, `max` (the coarsest level) without identical
+    /// particles.
     /// Merges beyond it are recorded (`annihilation_beyond_scales`) and warned.
-    pub fn scale_level(&self) -> u32 {
-        let max = crate::physics::cells::MAX_LEVEL;
+    pub fn scale_level(&self, max: u32) -> u32 {
         let Some(period) = self.structure_period_k() else {
             return max;
         };

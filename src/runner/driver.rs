@@ -482,7 +482,7 @@ fn drive(
 
 /// The warning of an annihilation that merged cells beyond half the exchange period.
 fn beyond_scales_warning(setup: &Setup, pass: &Pass, t: f64) -> String {
-    let ck = setup.cell_k * f64::from(1u32 << setup.scale_level());
+    let ck = setup.cell_k * f64::from(1u32 << setup.scale_level(crate::physics::cells::MAX_LEVEL));
     format!(
         "t = {t} fs: {:.1} % of the samples annihilated with both signs in their cell were in cells wider in k than \
          half the exchange period 2π/d = {:.4} 1/nm (cells up to {ck:.4} 1/nm stay within it): such merges erase \
