@@ -66,10 +66,16 @@ pub fn run(
     let mut timers = Timers::default();
     let t0 = Instant::now();
     let (st, init) = initial_state(setup, comm)?;
+    // A coherence length too short for the physics (a resonance the packet meets, a ring's
+    // copy one turn away); the resonance scan is part of the set-up time.
+    let warnings = if root {
+        setup.coherence_warnings()
+    } else {
+        Vec::new()
+    };
     timers.add(Phase::Initial, t0);
     if root {
-        // A coherence length too short for a resonance the job's packet meets.
-        for w in setup.coherence_warnings() {
+        for w in warnings {
             progress(Progress::Warning(w));
         }
         progress(Progress::Started {
