@@ -78,8 +78,13 @@ struct Decision {
 pub enum Cells<'a> {
     /// The particle's cell at one level of the nested mesh.
     Level(&'a CellMesh, u32),
-    /// One key per particle in store order (the leaves of the adaptive resolution).
-    Keys(&'a [u128]),
+    /// The leaves of the adaptive resolution: per finest cell of this rank its leaf's key,
+    /// and per particle in store order its finest cell. Binning then hashes each finest cell
+    /// once instead of each particle.
+    Leaves {
+        leaf_key: &'a [u128],
+        cell_of: &'a [usize],
+    },
 }
 
 impl Cells<'_> {
@@ -87,7 +92,7 @@ impl Cells<'_> {
     fn key(&self, store: &Store, p: usize) -> u128 {
         match *self {
             Cells::Level(mesh, level) => mesh.key_at(store.xs(p), store.ks(p), store.id[p], level),
-            Cells::Keys(keys) => keys[p],
+            Cells::Leaves { leaf_key, cell_of } => leaf_key[cell_of[p]],
         }
     }
 }
@@ -102,6 +107,8 @@ pub struct Annihilator {
     cell_of: Vec<usize>,
     /// Per particle (only with several threads): its cell key.
     keys: Vec<u128>,
+    /// With [`Cells::Leaves`]: per finest cell, its leaf's local cell index.
+    leaf_of: Vec<usize>,
     /// Per local cell: + and − counts on this rank.
     plus: Vec<u64>,
     minus: Vec<u64>,
@@ -223,6 +230,28 @@ impl Annihilator {
                         *key = cells.key(store, p);
                     }
                 });
+        }
+        if let Cells::Leaves { leaf_key, cell_of } = cells {
+            // One hash per finest cell: its leaf's local index; particles then look it up.
+            self.leaf_of.clear();
+            for &key in leaf_key {
+                let c = self.table.insert(key);
+                if c == self.plus.len() {
+                    self.plus.push(0);
+                    self.minus.push(0);
+                }
+                self.leaf_of.push(c);
+            }
+            for (p, &fine) in cell_of.iter().enumerate().take(n) {
+                let c = self.leaf_of[fine];
+                if store.sign[p] > 0 {
+                    self.plus[c] += 1;
+                } else {
+                    self.minus[c] += 1;
+                }
+                self.cell_of.push(c);
+            }
+            return;
         }
         for p in 0..n {
             let key = match cells {

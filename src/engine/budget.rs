@@ -70,7 +70,7 @@ impl Annihilation {
         match setup.resolution {
             Resolution::Adaptive => {
                 let out = self.resolution.resolve(&self.mesh, store, target, comm);
-                let cells = Cells::Keys(self.resolution.keys());
+                let cells = self.resolution.leaves();
                 let mut report = self.annihilator.run(setup, cells, store, interval, comm);
                 debug_assert_eq!(report.after, out.after, "the tree's count is exact");
                 report.binning_s += out.seconds;

@@ -66,8 +66,8 @@ pub fn packed_bytes_per_particle(n: usize) -> f64 {
 /// | field | per | bytes |
 /// |---|---|---|
 /// | `cell_of: Vec<usize>` | particle | 8 |
-/// | `keys: Vec<u128>` (each particle's leaf key) | particle | 16 |
 /// | `fine` keys and slots, `plus`, `minus`, `leaf_key` | finest occupied cell | 16 + 16 + 16 (+ slots) |
+/// | annihilator `leaf_of: Vec<usize>` (leaf index of each finest cell) | finest occupied cell | 8 |
 /// | `owned` keys and slots, `owned_plus`, `owned_minus` | finest cell owned | 16 + 16 (+ slots) |
 /// | `tree.nodes: Vec<Node>` (u64, u64, usize, u64, u128, u16: 64 with alignment) | node of any level | 64 |
 /// | `tree.leaf: Vec<[u8; RUNGS]>` | node of any level | `RUNGS` |
@@ -120,8 +120,11 @@ pub fn annihilator_bytes() -> AnnihilatorBytes {
         per_slot: 3.0 * u64_b,
         // owned keys, owned_plus + owned_minus, owned_holders, sent_cells, entry_cell.
         per_cell_owner: u128_b + 2.0 * u64_b + 2.0 * u64_b + usize_b + usize_b,
-        per_particle_adaptive: usize_b + u128_b,
-        per_cell_adaptive: (u128_b + 2.0 * u64_b + u128_b) + (u128_b + 2.0 * u64_b),
+        // cell_of (the particles' finest cells; leaf keys are per cell, not per particle).
+        per_particle_adaptive: usize_b,
+        // fine key, plus + minus, leaf key; owned key, plus + minus; the annihilator's
+        // leaf index per finest cell.
+        per_cell_adaptive: (u128_b + 2.0 * u64_b + u128_b) + (u128_b + 2.0 * u64_b) + usize_b,
     }
 }
 
@@ -254,7 +257,7 @@ impl Forecast {
         let cells = if load.annihilates { load.cells } else { 0.0 };
         let adaptive = setup.resolution == crate::config::job::Resolution::Adaptive;
         // The keys of several threads are computed only for whole-level (fixed) cells; the
-        // adaptive pass hands the annihilator its own per-particle keys.
+        // adaptive pass hands the annihilator its leaves per finest cell.
         let per_particle = a.per_particle
             + if load.threads > 1 && !adaptive {
                 a.per_particle_threaded

@@ -256,13 +256,11 @@ pub struct Resolution {
     tree: Tree,
     /// Per local finest cell: its leaf's key.
     leaf_key: Vec<u128>,
-    /// Per particle: its leaf's key (the output).
-    keys: Vec<u128>,
 }
 
 impl Resolution {
     /// Choose the leaves for `store` so that annihilation leaves at most `target` samples
-    /// if any rung allows it (else the last rung), and fill [`Resolution::keys`].
+    /// if any rung allows it (else the last rung), and fill [`Resolution::leaves`].
     pub fn resolve(
         &mut self,
         mesh: &CellMesh,
@@ -363,13 +361,10 @@ impl Resolution {
             levels = lv;
         }
         let rung = choose(&counts, target);
-        // 3. Each particle's leaf key.
+        // 3. Each local finest cell's leaf key (the particles keep their finest cell).
         self.leaf_key.clear();
         self.leaf_key
             .extend((0..cells).map(|c| mesh.lift(self.fine.keys[c], u32::from(levels[c]))));
-        self.keys.clear();
-        self.keys
-            .extend(self.cell_of.iter().map(|&c| self.leaf_key[c]));
         let mut mixed_by_level = [0u64; LEVELS];
         for (l, m) in mixed_by_level.iter_mut().enumerate() {
             *m = counts[RUNGS + rung * LEVELS + l] as u64;
@@ -383,9 +378,13 @@ impl Resolution {
         }
     }
 
-    /// Per particle in store order: the key of its leaf (after [`Resolution::resolve`]).
-    pub fn keys(&self) -> &[u128] {
-        &self.keys
+    /// The leaves as the annihilator bins them: per local finest cell its leaf's key, per
+    /// particle in store order its finest cell (after [`Resolution::resolve`]).
+    pub fn leaves(&self) -> crate::engine::annihilate::Cells<'_> {
+        crate::engine::annihilate::Cells::Leaves {
+            leaf_key: &self.leaf_key,
+            cell_of: &self.cell_of,
+        }
     }
 }
 
