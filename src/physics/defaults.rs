@@ -353,6 +353,39 @@ mod tests {
         (6.0 * g.sigma).max(8.0 * g.sigma).max(30.0)
     }
 
+    /// A ring whose packet wraps around (v12: 160 nm box, σ = 8 nm, 0.86 nm/fs for 160 fs)
+    /// gets L_c = L + 6w (the copy one turn away, docs/method.md §2.5) and carries its copies
+    /// ±L; a job setting less is warned about. A packet that cannot reach an edge in time does not wrap.
+    #[test]
+    fn a_wrapping_ring_gets_a_window_that_holds_the_copy_one_turn_away() {
+        let mut loaded = validation_job("v12-periodic.toml", true, &[]);
+        resolve(&mut loaded).unwrap();
+        assert!(ring_wraps(&loaded).unwrap());
+        assert_eq!(loaded.job.numerics.coherence_length, 160.0 + 6.0 * 8.0);
+        let setup = Setup::new(&loaded).unwrap();
+        let copies: Vec<i64> = setup.orbital_components[0]
+            .iter()
+            .filter(|c| c.wrapped)
+            .map(|c| c.cell)
+            .collect();
+        assert_eq!(copies, vec![-1, 1]);
+        assert!(setup.coherence_warnings().is_empty());
+        let short = validation_job(
+            "v12-periodic.toml",
+            false,
+            &["numerics.coherence_length=60"],
+        );
+        let w = Setup::new(&short).unwrap().coherence_warnings();
+        assert!(w.iter().any(|w| w.contains("wraps around")), "{w:?}");
+        // Centred and brief: reach 1.4 nm/fs × 5 fs + 6σ = 55 nm < 80 nm to either edge.
+        let brief = validation_job(
+            "v12-periodic.toml",
+            true,
+            &["numerics.end_time=5", "orbital.0.centre=0"],
+        );
+        assert!(!ring_wraps(&brief).unwrap());
+    }
+
     #[test]
     fn the_default_coherence_length_of_the_double_barrier_meets_its_resonance() {
         // The job leaves L_c unset (and `unset` would drop it if it did not).

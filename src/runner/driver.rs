@@ -308,42 +308,29 @@ fn drive(
             } else {
                 pass.threshold > forced_threshold
             };
+            let t = st.step as f64 * setup.dt;
+            let mut said = Vec::new();
             // Merges beyond half the exchange period: warned at 10 % of the mixed samples,
             // and again each time the share doubles (a reporting threshold, not a bound on
             // the bias, which the validation suite measures).
             if pass.beyond_scales >= 0.1 && pass.beyond_scales >= 2.0 * warned_beyond {
                 warned_beyond = pass.beyond_scales;
-                if root {
-                    progress(Progress::Warning(beyond_scales_warning(
-                        setup,
-                        pass,
-                        st.step as f64 * setup.dt,
-                    )));
-                }
+                said.push(beyond_scales_warning(setup, pass, t));
             }
             // Several particles and the budget binds (cells merged beyond the finest): in the
             // validation suite every such job was biased at the default budget; said once.
             if setup.n >= 2 && pass.coarsest_level > 0 && !warned_binding {
                 warned_binding = true;
-                if root {
-                    progress(Progress::Warning(binding_warning(
-                        setup,
-                        &annihilation,
-                        pass,
-                        st.step as f64 * setup.dt,
-                    )));
-                }
+                said.push(binding_warning(setup, &annihilation, pass, t));
             }
             if pass.forced && worse {
                 forced_level = forced_level.max(pass.coarsest_level);
                 forced_threshold = forced_threshold.max(pass.threshold);
-                if root {
-                    progress(Progress::Warning(forced_warning(
-                        setup,
-                        &annihilation,
-                        pass,
-                        st.step as f64 * setup.dt,
-                    )));
+                said.push(forced_warning(setup, &annihilation, pass, t));
+            }
+            if root {
+                for w in said {
+                    progress(Progress::Warning(w));
                 }
             }
             bytes_sent.push(8.0 * (rep.words_sent + *moved) as f64);
