@@ -64,7 +64,8 @@ pub fn run(
         let _ = std::fs::write(opts.out.join(names::JOB_COPY_FILE), &loaded.text);
     }
     let mut timers = Timers::default();
-    let t0 = Instant::now();
+    // Set-up from the start: the directory's lock and waiting for the other ranks count too.
+    let t0 = started;
     let (st, init) = initial_state(setup, comm)?;
     // A coherence length too short for the physics (a resonance the packet meets, a ring's
     // copy one turn away); the resonance scan is part of the set-up time.
@@ -149,6 +150,8 @@ pub fn resume(
         }
     }
     let mut timers = Timers::default();
+    // The lock and the clean-up (with the waits for the other ranks) are set-up.
+    timers.add(Phase::Initial, started);
     let t0 = Instant::now();
     let restored = checkpoint::newest_valid(dir, comm)?;
     let setup = Setup::new(&restored.job)?;
@@ -217,8 +220,10 @@ fn drive(
     progress: Sink,
 ) -> Result<Ending> {
     let root = comm.is_root();
+    let t0 = Instant::now();
     // The cell hierarchy and annihilation buffers, kept from one pass to the next.
     let mut annihilation = Annihilation::new(setup)?;
+    timers.add(Phase::Initial, t0);
     // Most merging the budget has forced so far (warned when it grows).
     let mut forced_threshold = 0.0f64;
     let mut forced_level = 0u32;
@@ -251,9 +256,11 @@ fn drive(
     }
     .min(setup.steps);
     let ck = &setup.job.checkpoint;
+    let t0 = Instant::now();
     // Every rank must have built the same tables (a heterogeneous cluster may not).
     let numerics = checkpoint::numerics_hash(setup);
     same_numerics_on_every_rank(setup, comm)?;
+    timers.add(Phase::Initial, t0);
     // The one checkpoint write of the run (early stops, stops in the loop, cadence).
     let save = |st: &State, out: &ResultFile, timers: &mut Timers| -> Result<f64> {
         let t0 = Instant::now();
@@ -297,6 +304,7 @@ fn drive(
         let step = sync_step(setup, &mut annihilation, &mut st, comm, &mut timers);
         events += step.events;
         let count = step.count;
+        let t0 = Instant::now();
         if let Some(Annihilated {
             pass,
             moved_words: moved,
@@ -362,7 +370,6 @@ fn drive(
                 }
             }
         }
-        let t0 = Instant::now();
         // Memory cap (docs/method.md §3): what this rank holds now (resident) and what the
         // next step's growth, at this step's rate, would add.
         if let Some(a) = &step.annihilation {
@@ -442,6 +449,7 @@ fn drive(
                 return Ok(Ending::Checkpointed);
             }
         }
+        let t0 = Instant::now();
         if root && (is_output || last_print.elapsed().as_secs_f64() >= 2.0) {
             last_print = Instant::now();
             let el = started.elapsed().as_secs_f64();
@@ -471,6 +479,7 @@ fn drive(
                 left_s: el / frac.max(1e-9) - el,
             });
         }
+        timers.add(Phase::Bookkeeping, t0);
     }
     // The last line says how the run ended (batch scripts look for it).
     if let Some(rows) = phase_table(&timers, started, comm) {
