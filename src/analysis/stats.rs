@@ -159,10 +159,15 @@ pub fn scalar_test(
     groups: usize,
     exact_tolerance: f64,
 ) -> ScalarTest {
+    scalar_test_nu(estimate, se, exact, groups as f64 - 1.0, exact_tolerance)
+}
+
+/// [`scalar_test`] with ν degrees of freedom given directly.
+fn scalar_test_nu(estimate: f64, se: f64, exact: f64, nu: f64, exact_tolerance: f64) -> ScalarTest {
     let diff = estimate - exact;
     if se > 0.0 {
         let t = diff / se;
-        let p = student_two_sided_p(t, groups as f64 - 1.0);
+        let p = student_two_sided_p(t, nu);
         ScalarTest {
             t,
             z: t.signum() * normal_score_two_sided(p),
@@ -209,19 +214,31 @@ pub fn binned_test(
     use_bin: impl Fn(usize) -> bool,
 ) -> BinnedTest {
     let nu = groups as f64 - 1.0;
+    binned_from(
+        (0..value.len())
+            .filter(|&i| use_bin(i))
+            .map(|i| (error[i] > 0.0).then(|| ((value[i] - exact[i]) / error[i], nu))),
+    )
+}
+
+/// The mean-p score of per-bin studentised differences: `None` for a bin without error
+/// (counted, not tested), else (t, ν).
+fn binned_from(bins_t: impl Iterator<Item = Option<(f64, f64)>>) -> BinnedTest {
     let (mut bins, mut empty) = (0usize, 0usize);
-    let (mut sum_p, mut sum_t2) = (0.0, 0.0);
-    for i in 0..value.len() {
-        if !use_bin(i) {
-            continue;
-        }
-        if error[i] > 0.0 {
-            let t = (value[i] - exact[i]) / error[i];
-            bins += 1;
-            sum_t2 += t * t;
-            sum_p += student_two_sided_p(t, nu);
-        } else {
-            empty += 1;
+    let (mut sum_p, mut sum_t2, mut sum_e) = (0.0, 0.0, 0.0);
+    for b in bins_t {
+        match b {
+            Some((t, nu)) => {
+                bins += 1;
+                sum_t2 += t * t;
+                sum_p += student_two_sided_p(t, nu);
+                sum_e += if nu > 2.0 {
+                    nu / (nu - 2.0)
+                } else {
+                    f64::INFINITY
+                };
+            }
+            None => empty += 1,
         }
     }
     let m = bins.max(1) as f64;
@@ -230,11 +247,7 @@ pub fn binned_test(
         bins,
         empty_bins: empty,
         mean_t2: sum_t2 / m,
-        expected_t2: if nu > 2.0 {
-            nu / (nu - 2.0)
-        } else {
-            f64::INFINITY
-        },
+        expected_t2: if bins > 0 { sum_e / m } else { f64::INFINITY },
         mean_p,
         z: if bins > 0 {
             (mean_p - 0.5) / (1.0 / (12.0 * m)).sqrt()
@@ -242,6 +255,54 @@ pub fn binned_test(
             0.0
         },
     }
+}
+
+/// Welch–Satterthwaite degrees of freedom of the difference of two independent estimates
+/// whose standard errors `se_a`, `se_b` each come from `groups` groups:
+/// ν = (a² + b²)² / ((a⁴ + b⁴)/(B − 1)), between B − 1 (one error dominates) and
+/// 2(B − 1) (equal errors). Using B − 1 for equal errors would make honest differences
+/// look too small (a two-sided score drifting above 0 over many bins).
+pub fn welch_dof(se_a: f64, se_b: f64, groups: usize) -> f64 {
+    let (a, b) = (se_a * se_a, se_b * se_b);
+    let nu = groups as f64 - 1.0;
+    if a + b > 0.0 {
+        ((a + b) * (a + b) / ((a * a + b * b) / nu)).clamp(nu, 2.0 * nu)
+    } else {
+        nu
+    }
+}
+
+/// Test of two independent runs' scalar estimates a ± se_a and b ± se_b (different seeds):
+/// t = (a − b)/√(se_a² + se_b²) under Student's t with the Welch degrees of freedom.
+/// With both errors zero the two must be equal (within `tolerance`).
+pub fn difference_test(
+    a: f64,
+    se_a: f64,
+    b: f64,
+    se_b: f64,
+    groups: usize,
+    tolerance: f64,
+) -> ScalarTest {
+    let se = (se_a * se_a + se_b * se_b).sqrt();
+    let nu = welch_dof(se_a, se_b, groups);
+    // scalar_test with ν + 1 "groups" uses ν degrees of freedom.
+    scalar_test_nu(a, se, b, nu, tolerance)
+}
+
+/// Bin by bin test of two independent runs (different seeds), over the bins `use_bin`
+/// selects: t_i = (a_i − b_i)/√(ea_i² + eb_i²) with the Welch degrees of freedom of each bin.
+pub fn binned_difference_test(
+    a: &[f64],
+    ea: &[f64],
+    b: &[f64],
+    eb: &[f64],
+    groups: usize,
+    use_bin: impl Fn(usize) -> bool,
+) -> BinnedTest {
+    binned_from((0..a.len()).filter(|&i| use_bin(i)).map(|i| {
+        let se = (ea[i] * ea[i] + eb[i] * eb[i]).sqrt();
+        (se > 0.0).then(|| ((a[i] - b[i]) / se, welch_dof(ea[i], eb[i], groups)))
+    }))
 }
 
 // Comparison of two estimates with errors (used by `compare`): batch-means terms.
@@ -314,7 +375,7 @@ mod comparison_tests {
     #[test]
     fn terms_follow_f_not_chi_square() {
         let b = 8u32;
-        let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(3);
+        let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(20261203);
         let mut t = BinnedTerms::default();
         let reps = 20_000;
         for _ in 0..reps {
@@ -336,6 +397,43 @@ mod comparison_tests {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// Two independent runs of B = 8 groups each (group values standard normal, so the
+    /// truth is 0 in every bin): the difference test must score them as honest, |Z| ≤ 3.5
+    /// over 20000 bins (a 5·10⁻⁴ event if calibrated). Scored with B − 1 degrees of freedom
+    /// instead of Welch's, the same differences look too small (Z ≈ 5 over 20000 bins).
+    #[test]
+    fn difference_of_independent_runs_is_scored_as_honest() {
+        use rand::SeedableRng;
+        use rand_distr::{Distribution, StandardNormal};
+        let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(20261203);
+        let (groups, bins) = (8usize, 20000usize);
+        let mut run = || -> (Vec<f64>, Vec<f64>) {
+            (0..bins)
+                .map(|_| {
+                    let g: Vec<f64> = (0..groups)
+                        .map(|_| StandardNormal.sample(&mut rng))
+                        .collect();
+                    let mean = g.iter().sum::<f64>() / groups as f64;
+                    let var =
+                        g.iter().map(|x| (x - mean).powi(2)).sum::<f64>() / (groups as f64 - 1.0);
+                    (mean, (var / groups as f64).sqrt())
+                })
+                .unzip()
+        };
+        let (a, ea) = run();
+        let (b, eb) = run();
+        let welch = binned_difference_test(&a, &ea, &b, &eb, groups, |_| true);
+        assert_eq!(welch.bins, bins);
+        assert!(welch.z.abs() <= 3.5, "Welch: Z = {}", welch.z);
+        let se: Vec<f64> = ea.iter().zip(&eb).map(|(x, y)| x.hypot(*y)).collect();
+        let naive = binned_test(&a, &se, &b, groups, |_| true);
+        assert!(naive.z > 3.5, "B − 1 degrees of freedom: Z = {}", naive.z);
+        // Scalars: a difference of 0 is p = 1; Welch's ν lies between B − 1 and 2(B − 1).
+        assert_eq!(difference_test(1.0, 0.1, 1.0, 0.1, groups, 0.0).p, 1.0);
+        assert!((welch_dof(0.1, 0.1, groups) - 14.0).abs() < 1e-12);
+        assert!((welch_dof(0.1, 0.0, groups) - 7.0).abs() < 1e-12);
+    }
 
     #[test]
     fn gamma_and_beta_match_closed_forms() {

@@ -78,6 +78,11 @@ pub enum Command {
         /// rayon threads per rank (default: all cores / ranks on this node).
         #[arg(long, value_name = "N")]
         threads: Option<usize>,
+        /// After the run, run the job again at 2× and 4× the sample budget and at 1.5× the
+        /// coherence length (each with its own seed, into DIR/systematic/) and test whether
+        /// the answer moved beyond the noise; writes DIR/systematic.md; exit 1 if it moved.
+        #[arg(long, conflicts_with_all = ["until", "walltime"])]
+        systematic: bool,
     },
     /// Continue a run from the newest valid checkpoint in DIR, on any number of ranks.
     Resume {
@@ -326,6 +331,7 @@ fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
             until,
             walltime,
             threads,
+            systematic,
         } => {
             collective(configure_threads(threads, world))?;
             let opts = run::RunArgs {
@@ -335,6 +341,7 @@ fn engine_command(cmd: Command, world: &World) -> anyhow::Result<ExitCode> {
                 force,
                 until,
                 walltime,
+                systematic,
             };
             run::run(opts, world)
         }

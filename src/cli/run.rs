@@ -18,6 +18,8 @@ pub struct RunArgs {
     pub force: bool,
     pub until: Option<f64>,
     pub walltime: Option<String>,
+    /// Rerun at a larger budget and coherence length and compare (`--systematic`).
+    pub systematic: bool,
 }
 
 /// `--until T`: a finite time ≥ 0 fs.
@@ -45,12 +47,106 @@ pub fn run(args: RunArgs, world: &World) -> anyhow::Result<ExitCode> {
     collective(plan.verdict)?;
     setup.memory_limit = plan.available;
     let opts = RunOptions {
-        out: args.out,
+        out: args.out.clone(),
         force: args.force,
         until: args.until,
         walltime,
     };
-    collective(driver::run(&loaded, &setup, &opts, world, &mut show))?;
+    let ending = collective(driver::run(&loaded, &setup, &opts, world, &mut show))?;
+    if !args.systematic || ending != driver::Ending::Finished {
+        return Ok(ExitCode::SUCCESS);
+    }
+    systematic(&args, &loaded, setup.budget, world, runtime)
+}
+
+/// `--systematic`: each variant of [`signfold::study::systematic`] run like the base run into
+/// DIR/systematic/<tag>, compared with it on rank 0, reported in DIR/systematic.md.
+fn systematic(
+    args: &RunArgs,
+    loaded: &signfold::config::job::LoadedJob,
+    budget: u64,
+    world: &World,
+    runtime: f64,
+) -> anyhow::Result<ExitCode> {
+    use signfold::io::{names, results::ResultFile};
+    use signfold::study::systematic::{self, Outcome};
+    let root = signfold::engine::comm::Comm::is_root(world);
+    let read = |dir: &Path| ResultFile::read(&dir.join(names::OBSERVABLES_FILE));
+    let mut results = Vec::new();
+    for v in systematic::variants(loaded, budget) {
+        let out = args.out.join("systematic").join(v.tag);
+        if root {
+            println!(
+                "signfold: systematic check, {} ({}) into {}",
+                v.label,
+                v.set.join(", "),
+                out.display()
+            );
+        }
+        let set: Vec<String> = args.set.iter().chain(&v.set).cloned().collect();
+        let loaded_v = collective(signfold::physics::defaults::load(&args.job, &set))?;
+        let mut setup = collective(Setup::new(&loaded_v))?;
+        let plan = collective(super::check::plan(&mut setup, world, runtime))?;
+        // The forecast is the same on every rank: a variant that would not fit is skipped.
+        if let Err(e) = plan.verdict {
+            if root {
+                eprintln!(
+                    "signfold: warning: systematic check, {}: skipped: {e:#}",
+                    v.label
+                );
+            }
+            results.push((v, Outcome::Skipped(format!("{e:#}"))));
+            continue;
+        }
+        setup.memory_limit = plan.available;
+        let opts = RunOptions {
+            out: out.clone(),
+            force: args.force,
+            until: None,
+            walltime: None,
+        };
+        collective(driver::run(&loaded_v, &setup, &opts, world, &mut show))?;
+        let outcome = if root {
+            let (base, var) = (collective(read(&args.out))?, collective(read(&out))?);
+            let groups = loaded.job.numerics.groups as usize;
+            Outcome::Compared(systematic::compare_runs(v.label, groups, &base, &var))
+        } else {
+            Outcome::Compared(Vec::new())
+        };
+        results.push((v, outcome));
+    }
+    if !root {
+        return Ok(ExitCode::SUCCESS);
+    }
+    let path = args.out.join("systematic.md");
+    let name = args.job.display().to_string();
+    std::fs::write(&path, systematic::report(&name, &results))
+        .map_err(|e| anyhow::anyhow!("cannot write {}: {e}", path.display()))?;
+    let mut moved = 0;
+    for (v, o) in &results {
+        moved += systematic::moved(o);
+        match o {
+            Outcome::Compared(c) => println!(
+                "signfold: systematic check, {}: {} checks against the base run, {} moved beyond the noise",
+                v.label,
+                c.len(),
+                systematic::moved(o)
+            ),
+            Outcome::Skipped(_) => println!("signfold: systematic check, {}: skipped", v.label),
+        }
+    }
+    if moved > 0 {
+        eprintln!(
+            "signfold: the answer moved beyond the noise in {moved} checks when the budget or the coherence length grew: \
+             the run is not converged in them (see {}); trust it only after a larger budget or L_c stops moving it",
+            path.display()
+        );
+        return Ok(ExitCode::from(1));
+    }
+    println!(
+        "signfold: systematic check passed: nothing moved beyond the noise ({})",
+        path.display()
+    );
     Ok(ExitCode::SUCCESS)
 }
 

@@ -505,7 +505,7 @@ fn binding_warning(setup: &Setup, annihilation: &Annihilation, pass: &Pass, t: f
          up to {cx:.3} nm × {ck:.4} 1/nm (mean level {:.2}); in the validation suite every two- and three-body job \
          whose count reached the default budget (10 × numerics.samples) showed a density or pair-density bias beyond \
          its error bars, several of them with no other warning (docs/method.md §3.1): rerun with a larger budget and \
-         compare before trusting the result",
+         compare before trusting the result (`signfold run JOB --out DIR --systematic` does this)",
         setup.budget, pass.mean_level,
     )
 }
@@ -517,7 +517,7 @@ fn beyond_scales_warning(setup: &Setup, pass: &Pass, t: f64) -> String {
         "t = {t} fs: {:.1} % of the samples annihilated with both signs in their cell were in cells wider in k than \
          half the exchange period 2π/d = {:.4} 1/nm (cells up to {ck:.4} 1/nm stay within it): such merges erase \
          exchange structure and can bias the pair density; raise the sample budget (annihilation.budget = {}) and \
-         check convergence (`signfold validate --systematic` does this for the suite)",
+         check convergence (`signfold run JOB --out DIR --systematic` reruns at 2× and 4× the budget and compares)",
         100.0 * pass.beyond_scales,
         setup.structure_period_k().unwrap_or(f64::NAN),
         setup.budget,

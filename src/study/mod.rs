@@ -2,7 +2,9 @@
 //! against the exact reference.
 
 pub mod accuracy;
+pub mod checks;
 pub mod refcache;
 pub mod scaling;
+pub mod systematic;
 pub mod transmission;
 pub mod validate;

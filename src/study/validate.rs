@@ -16,7 +16,7 @@
 //! from the cache in `<jobs>/reference-cache` when its key matches
 //! ([`crate::study::refcache`]).
 
-use crate::analysis::stats::{self, BinnedTest, ScalarTest};
+use crate::analysis::stats;
 use crate::config::job::LoadedJob;
 use crate::engine::comm::Solo;
 use crate::io::names::{self, Dataset};
@@ -25,7 +25,9 @@ use crate::physics::numerics::Setup;
 use crate::runner::driver::{self, RunOptions};
 use crate::runner::progress::Progress;
 use crate::study::accuracy::{common_frames, expected_noise_l1};
+pub use crate::study::checks::{ACCEPT, Check, Kind};
 use crate::study::refcache::{self, Source};
+use crate::study::systematic;
 use crate::study::transmission::{self, Assessment, Outcome};
 use crate::viz::chart::{Area, FONT_NAME, LABEL_PX, TICK_PX, TITLE_PX, ensure_font, render};
 use crate::viz::colormap;
@@ -37,9 +39,6 @@ use std::time::Instant;
 
 /// Name of the check of the Monte Carlo transmitted norm against the stationary T.
 pub const STATIONARY: &str = "stationary_transmission";
-
-/// Largest |t| or |Z| accepted.
-pub const ACCEPT: f64 = 3.5;
 
 /// The subset `--quick` runs: one job per code path (one-body kernel with absorbing walls,
 /// a force with a kernel term in a closed box, identical fermions with exchange, the pair
@@ -75,43 +74,6 @@ pub struct Options {
     /// cached one whose physics key matches.
     #[arg(long)]
     pub recompute_references: bool,
-}
-
-/// One test of one observable at one output time.
-#[derive(Clone, Debug)]
-pub struct Check {
-    pub job: String,
-    pub time: f64,
-    pub observable: &'static str,
-    pub kind: Kind,
-}
-
-/// What was tested.
-#[derive(Clone, Debug)]
-pub enum Kind {
-    Scalar {
-        estimate: f64,
-        se: f64,
-        exact: f64,
-        test: ScalarTest,
-    },
-    Binned(BinnedTest),
-}
-
-impl Check {
-    /// The statistic compared with [`ACCEPT`]: for scalars the normal score z of t's
-    /// two-sided p-value under t(B − 1), for binned data Z; both standard normal when the
-    /// estimate is unbiased and its error bar honest.
-    pub fn statistic(&self) -> f64 {
-        match &self.kind {
-            Kind::Scalar { test, .. } => test.z,
-            Kind::Binned(b) => b.z,
-        }
-    }
-
-    pub fn passed(&self) -> bool {
-        self.statistic().abs() <= ACCEPT
-    }
 }
 
 /// Precision reached by one job (last output time).
@@ -207,73 +169,6 @@ pub fn compare(
     out
 }
 
-/// Compare two Monte Carlo runs of one job (a variant against the base): the same tests
-/// as [`compare`] with the difference studentised by sqrt(se_a² + se_b²), ν = B − 1 (the
-/// smaller of the two runs' degrees of freedom, conservative).
-pub fn compare_runs(
-    job: &str,
-    groups: usize,
-    base: &ResultFile,
-    variant: &ResultFile,
-) -> Vec<Check> {
-    let mut out = Vec::new();
-    let nx = base.x.len();
-    for (i, j, time) in common_frames(variant, base) {
-        for d in [names::NORM, names::NORM_RIGHT, names::ENERGY] {
-            let get =
-                |f: &ResultFile, t: usize, name: &str| f.series.get(name).map(|s| s.frame(t)[0]);
-            let err = names::error_of(d.name);
-            let (Some(a), Some(ea), Some(b), Some(eb)) = (
-                get(variant, i, d.name),
-                get(variant, i, &err),
-                get(base, j, d.name),
-                get(base, j, &err),
-            ) else {
-                continue;
-            };
-            let se = (ea * ea + eb * eb).sqrt();
-            out.push(Check {
-                job: job.into(),
-                time,
-                observable: d.name,
-                kind: Kind::Scalar {
-                    estimate: a,
-                    se,
-                    exact: b,
-                    test: stats::scalar_test(a, se, b, groups, 0.0),
-                },
-            });
-        }
-        for (d, upper) in [(names::DENSITY, false), (names::PAIR_DENSITY, true)] {
-            let err = names::error_of(d.name);
-            let (Some(a), Some(ea), Some(b), Some(eb)) = (
-                variant.series.get(d.name),
-                variant.series.get(&err),
-                base.series.get(d.name),
-                base.series.get(&err),
-            ) else {
-                continue;
-            };
-            let se: Vec<f64> = ea
-                .frame(i)
-                .iter()
-                .zip(eb.frame(j))
-                .map(|(x, y)| (x * x + y * y).sqrt())
-                .collect();
-            let test = stats::binned_test(a.frame(i), &se, b.frame(j), groups, |k| {
-                !upper || k / nx <= k % nx
-            });
-            out.push(Check {
-                job: job.into(),
-                time,
-                observable: d.name,
-                kind: Kind::Binned(test),
-            });
-        }
-    }
-    out
-}
-
 /// Transmitted norm at frame `t`: `norm_right` with its error (Monte Carlo), or absorbed
 /// right plus the one-body norm at x > 0 (reference, which has no `norm_right`).
 fn transmitted_at(f: &ResultFile, t: usize) -> Option<(f64, f64)> {
@@ -365,7 +260,7 @@ pub struct JobOutcome {
     pub stationary: Option<Assessment>,
 }
 
-/// Rerun a job at 2× and 4× the budget and at 1.5× the coherence length and compare each
+/// The systematic variants of a job ([`crate::study::systematic`]), each run and compared
 /// with the base run.
 fn variants(
     file: &Path,
@@ -376,27 +271,20 @@ fn variants(
     say: &mut dyn FnMut(String),
 ) -> Result<Vec<(String, Vec<Check>)>> {
     let budget = Setup::new(loaded)?.budget;
-    let lc = loaded.job.numerics.coherence_length;
     let mut out = Vec::new();
-    for (label, set) in [
-        ("2× budget", format!("annihilation.budget={}", 2 * budget)),
-        ("4× budget", format!("annihilation.budget={}", 4 * budget)),
-        (
-            "1.5× L_c",
-            format!("numerics.coherence_length={}", 1.5 * lc),
-        ),
-    ] {
-        let v = crate::physics::defaults::load(file, std::slice::from_ref(&set))?;
-        let tag = label.replace(['×', ' '], "");
-        let (mc, _) = run_monte_carlo(&v, &dir.with_extension(&tag))?;
-        let checks = compare_runs(&format!("{} {label}", dir.display()), groups, base, &mc);
+    for v in systematic::variants(loaded, budget) {
+        let loaded_v = crate::physics::defaults::load(file, &v.set)?;
+        let (mc, _) = run_monte_carlo(&loaded_v, &dir.with_extension(v.tag))?;
+        let checks =
+            systematic::compare_runs(&format!("{} {}", dir.display(), v.label), groups, base, &mc);
         let failed = checks.iter().filter(|c| !c.passed()).count();
         say(format!(
-            "{}: {label}: {} checks against the base run, {failed} moved beyond |stat| ≤ {ACCEPT}",
+            "{}: {}: {} checks against the base run, {failed} moved beyond |stat| ≤ {ACCEPT}",
             dir.file_name().unwrap_or_default().to_string_lossy(),
+            v.label,
             checks.len()
         ));
-        out.push((label.to_string(), checks));
+        out.push((v.label.to_string(), checks));
     }
     Ok(out)
 }
