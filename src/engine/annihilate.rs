@@ -18,7 +18,7 @@
 //! store); on one rank that is a selection, not a sort. The buffers live in an
 //! [`Annihilator`] that the run keeps from one call to the next.
 
-use crate::engine::cell_table::CellTable;
+use crate::engine::cell_table::{BATCH, CellTable, count_cells, prefetch};
 use crate::engine::comm::Comm;
 pub use crate::physics::cells::CellMesh;
 use crate::physics::numerics::Setup;
@@ -209,12 +209,6 @@ impl Annihilator {
     /// and `plus`/`minus` with the signs counted per cell.
     fn bin(&mut self, cells: Cells, store: &Store) {
         let n = store.len();
-        let hint = 2 * self.table.len();
-        self.table.clear(hint);
-        self.plus.clear();
-        self.minus.clear();
-        self.cell_of.clear();
-        self.cell_of.reserve(n);
         let threads = rayon::current_num_threads();
         if threads > 1 && matches!(cells, Cells::Level(..)) {
             // Keys in parallel, then the (cache-resident) counting pass.
@@ -233,6 +227,11 @@ impl Annihilator {
         }
         if let Cells::Leaves { leaf_key, cell_of } = cells {
             // One hash per finest cell: its leaf's local index; particles then look it up.
+            self.table.clear(2 * self.table.len());
+            self.plus.clear();
+            self.minus.clear();
+            self.cell_of.clear();
+            self.cell_of.reserve(n);
             self.leaf_of.clear();
             for &key in leaf_key {
                 let c = self.table.insert(key);
@@ -242,34 +241,48 @@ impl Annihilator {
                 }
                 self.leaf_of.push(c);
             }
-            for (p, &fine) in cell_of.iter().enumerate().take(n) {
-                let c = self.leaf_of[fine];
-                if store.sign[p] > 0 {
-                    self.plus[c] += 1;
-                } else {
-                    self.minus[c] += 1;
+            // Batches: the random reads of a batch (its leaves, then their counts) are
+            // issued together so that their cache misses overlap.
+            for start in (0..n).step_by(BATCH) {
+                let end = (start + BATCH).min(n);
+                for &fine in &cell_of[start..end] {
+                    prefetch(&self.leaf_of, fine);
                 }
-                self.cell_of.push(c);
+                for p in start..end {
+                    let c = self.leaf_of[cell_of[p]];
+                    prefetch(
+                        if store.sign[p] > 0 {
+                            &self.plus
+                        } else {
+                            &self.minus
+                        },
+                        c,
+                    );
+                    self.cell_of.push(c);
+                }
+                for p in start..end {
+                    let c = self.cell_of[p];
+                    if store.sign[p] > 0 {
+                        self.plus[c] += 1;
+                    } else {
+                        self.minus[c] += 1;
+                    }
+                }
             }
             return;
         }
-        for p in 0..n {
-            let key = match cells {
-                Cells::Level(..) if threads > 1 => self.keys[p],
+        let keys = &self.keys;
+        count_cells(
+            &mut self.table,
+            &mut self.plus,
+            &mut self.minus,
+            &mut self.cell_of,
+            &store.sign[..n],
+            |p| match cells {
+                Cells::Level(..) if threads > 1 => keys[p],
                 _ => cells.key(store, p),
-            };
-            let c = self.table.insert(key);
-            if c == self.plus.len() {
-                self.plus.push(0);
-                self.minus.push(0);
-            }
-            if store.sign[p] > 0 {
-                self.plus[c] += 1;
-            } else {
-                self.minus[c] += 1;
-            }
-            self.cell_of.push(c);
-        }
+            },
+        );
     }
 
     /// Local majority particles of cell c: their range in `cand` (after `gather`).
@@ -309,6 +322,11 @@ impl Annihilator {
         self.keep.clear();
         self.keep.resize(store.len(), true);
         for p in 0..store.len() {
+            // The decision of a particle further on, asked for now (its cell is random).
+            if let Some(&ahead) = self.cell_of.get(p + BATCH) {
+                prefetch(&self.decision, ahead);
+                prefetch(&self.next, ahead);
+            }
             let c = self.cell_of[p];
             let d = self.decision[c];
             if !d.mixed {

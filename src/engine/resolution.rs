@@ -272,25 +272,14 @@ impl Resolution {
         let ranks = comm.size();
         // 1. Finest cells of this rank.
         let n = store.len();
-        self.fine.clear(2 * self.fine.len());
-        self.plus.clear();
-        self.minus.clear();
-        self.cell_of.clear();
-        for p in 0..n {
-            let c = self
-                .fine
-                .insert(mesh.key(store.xs(p), store.ks(p), store.id[p]));
-            if c == self.plus.len() {
-                self.plus.push(0);
-                self.minus.push(0);
-            }
-            if store.sign[p] > 0 {
-                self.plus[c] += 1;
-            } else {
-                self.minus[c] += 1;
-            }
-            self.cell_of.push(c);
-        }
+        crate::engine::cell_table::count_cells(
+            &mut self.fine,
+            &mut self.plus,
+            &mut self.minus,
+            &mut self.cell_of,
+            &store.sign[..n],
+            |p| mesh.key(store.xs(p), store.ks(p), store.id[p]),
+        );
         let cells = self.fine.len();
         // 2. Global counts at the owners of the roots (the coarsest cells), the tree there.
         let mut words = 0u64;
