@@ -20,6 +20,7 @@
 
 use crate::engine::cell_table::{BATCH, CellTable, count_cells, prefetch};
 use crate::engine::comm::Comm;
+use crate::engine::owners::Owners;
 pub use crate::physics::cells::CellMesh;
 use crate::physics::numerics::Setup;
 use crate::physics::particles::Store;
@@ -119,13 +120,8 @@ pub struct Annihilator {
     /// grouped by cell, each group in store order.
     cand: Vec<(u64, usize)>,
     keep: Vec<bool>,
-    /// Owner side: global cells of the keys this rank owns.
-    owned: CellTable,
-    owned_plus: Vec<u64>,
-    owned_minus: Vec<u64>,
-    owned_holders: Vec<(u64, u64)>,
-    /// Per destination rank: the local cells sent there, in message order.
-    sent_cells: Vec<Vec<usize>>,
+    /// The count exchange with the owners of the keys (several ranks).
+    owners: Owners,
 }
 
 impl Annihilator {
@@ -346,55 +342,18 @@ impl Annihilator {
     /// Fills `decision`; returns the words this rank sent.
     fn decide_with_owners(&mut self, comm: &dyn Comm) -> u64 {
         let ranks = comm.size();
-        let cells = self.table.len();
-        let mut send = vec![Vec::new(); ranks];
-        self.sent_cells.resize(ranks, Vec::new());
-        for s in &mut self.sent_cells {
-            s.clear();
-        }
-        for c in 0..cells {
-            let key = self.table.keys[c];
-            let o = owner(key, ranks);
-            send[o].extend_from_slice(&[
-                key as u64,
-                (key >> 64) as u64,
-                self.plus[c],
-                self.minus[c],
-            ]);
-            self.sent_cells[o].push(c);
-        }
-        let mut words = send.iter().map(|v| v.len() as u64).sum::<u64>();
-        let recv = comm.exchange(&send);
-        // Owner: global counts and the number of ranks holding each sign, per key.
-        let entries: usize = recv.iter().map(|m| m.len() / 4).sum();
-        self.owned.clear(2 * entries);
-        self.owned_plus.clear();
-        self.owned_minus.clear();
-        self.owned_holders.clear();
-        let mut entry_cell = Vec::with_capacity(entries);
-        for msg in &recv {
-            for w in msg.chunks_exact(4) {
-                let g = self.owned.insert((w[0] as u128) | ((w[1] as u128) << 64));
-                if g == self.owned_plus.len() {
-                    self.owned_plus.push(0);
-                    self.owned_minus.push(0);
-                    self.owned_holders.push((0, 0));
-                }
-                self.owned_plus[g] += w[2];
-                self.owned_minus[g] += w[3];
-                self.owned_holders[g].0 += (w[2] > 0) as u64;
-                self.owned_holders[g].1 += (w[3] > 0) as u64;
-                entry_cell.push(g);
-            }
-        }
+        let mut words =
+            self.owners
+                .exchange(comm, &self.table.keys, &self.plus, &self.minus, |key| {
+                    owner(key, ranks)
+                });
+        // Owner: each entry's cell decided from the global counts and holders.
+        let own = &self.owners;
         let mut reply = vec![Vec::new(); ranks];
-        let mut e = 0;
-        for (r, msg) in recv.iter().enumerate() {
-            for j in 0..msg.len() / 4 {
-                let g = entry_cell[e];
-                e += 1;
-                let (hp, hm) = self.owned_holders[g];
-                if let Some(d) = decide(self.owned_plus[g], self.owned_minus[g], hp, hm) {
+        for (r, entries) in own.entries.iter().enumerate() {
+            for (j, &g) in entries.iter().enumerate() {
+                let (hp, hm) = own.holders[g];
+                if let Some(d) = decide(own.plus[g], own.minus[g], hp, hm) {
                     let mode = if d.threshold {
                         NEED_THRESHOLD
                     } else {
@@ -408,7 +367,7 @@ impl Annihilator {
         let decisions = comm.exchange(&reply);
         for (o, msg) in decisions.iter().enumerate() {
             for w in msg.chunks_exact(4) {
-                let c = self.sent_cells[o][w[0] as usize];
+                let c = self.owners.sent[o][w[0] as usize];
                 self.decision[c] = Decision {
                     mixed: true,
                     major: w[1] as i64 as i8,
@@ -455,7 +414,7 @@ impl Annihilator {
             let mut w = &msg[..];
             while w.len() >= 3 {
                 let key = (w[0] as u128) | ((w[1] as u128) << 64);
-                let g = self.owned.get(key).expect("asked keys are owned");
+                let g = self.owners.table.get(key).expect("asked keys are owned");
                 let count = w[2] as usize;
                 lists.extend(w[3..3 + count].iter().map(|&pr| (g, pr, r)));
                 w = &w[3 + count..];
@@ -470,7 +429,7 @@ impl Annihilator {
             while j < lists.len() && lists[j].0 == g {
                 j += 1;
             }
-            let quota = self.owned_plus[g].abs_diff(self.owned_minus[g]) as usize;
+            let quota = self.owners.plus[g].abs_diff(self.owners.minus[g]) as usize;
             let cell = &lists[i..j];
             let threshold = cell[quota - 1].1;
             let below = cell.iter().filter(|e| e.1 < threshold).count();
@@ -478,7 +437,7 @@ impl Annihilator {
             let mut ranks_here: Vec<usize> = cell.iter().map(|e| e.2).collect();
             ranks_here.sort_unstable();
             ranks_here.dedup();
-            let key = self.owned.keys[g];
+            let key = self.owners.table.keys[g];
             for r in ranks_here {
                 let ties_on_r = cell.iter().filter(|e| e.2 == r && e.1 == threshold).count();
                 let give = ties_on_r.min(ties_left);

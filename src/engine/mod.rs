@@ -12,6 +12,7 @@ pub mod memory;
 #[cfg(feature = "app")]
 pub mod mpi;
 pub mod observe;
+pub mod owners;
 pub mod pilot;
 pub mod resolution;
 pub mod start;

@@ -28,6 +28,7 @@
 
 use crate::engine::cell_table::CellTable;
 use crate::engine::comm::Comm;
+use crate::engine::owners::Owners;
 use crate::physics::cells::{CellMesh, MAX_LEVEL};
 use crate::physics::particles::Store;
 use crate::physics::rng;
@@ -250,9 +251,8 @@ pub struct Resolution {
     minus: Vec<u64>,
     cell_of: Vec<usize>,
     /// Owner side: global counts of the finest cells this rank owns.
-    owned: CellTable,
-    owned_plus: Vec<u64>,
-    owned_minus: Vec<u64>,
+    /// The count exchange with the owners of the roots (several ranks).
+    owners: Owners,
     tree: Tree,
     /// Per local finest cell: its leaf's key.
     leaf_key: Vec<u128>,
@@ -294,58 +294,35 @@ impl Resolution {
             let rung = choose(&counts, target);
             levels = self.tree.leaf[0].iter().map(|l| l[rung]).collect();
         } else {
-            let mut send = vec![Vec::new(); ranks];
-            for c in 0..cells {
-                let key = self.fine.keys[c];
-                let o = owner(mesh.lift(key, MAX_LEVEL), ranks);
-                send[o].extend_from_slice(&[
-                    key as u64,
-                    (key >> 64) as u64,
-                    self.plus[c],
-                    self.minus[c],
-                ]);
-            }
-            words += send.iter().map(|v| v.len() as u64).sum::<u64>();
-            let recv = comm.exchange(&send);
-            let entries: usize = recv.iter().map(|m| m.len() / 4).sum();
-            self.owned.clear(2 * entries);
-            self.owned_plus.clear();
-            self.owned_minus.clear();
-            let mut entry_cell = Vec::with_capacity(entries);
-            for msg in &recv {
-                for w in msg.chunks_exact(4) {
-                    let g = self.owned.insert((w[0] as u128) | ((w[1] as u128) << 64));
-                    if g == self.owned_plus.len() {
-                        self.owned_plus.push(0);
-                        self.owned_minus.push(0);
-                    }
-                    self.owned_plus[g] += w[2];
-                    self.owned_minus[g] += w[3];
-                    entry_cell.push(g);
-                }
-            }
-            let (after, by_level) =
-                self.tree
-                    .build(mesh, &self.owned.keys, &self.owned_plus, &self.owned_minus);
+            words += self
+                .owners
+                .exchange(comm, &self.fine.keys, &self.plus, &self.minus, |key| {
+                    owner(mesh.lift(key, MAX_LEVEL), ranks)
+                });
+            let own = &self.owners;
+            let (after, by_level) = self
+                .tree
+                .build(mesh, &own.table.keys, &own.plus, &own.minus);
             fill(&mut counts, &after, &by_level);
             comm.sum_i64(&mut counts);
             let rung = choose(&counts, target);
-            let mut reply = vec![Vec::new(); ranks];
-            let mut e = 0;
-            for (r, msg) in recv.iter().enumerate() {
-                for _ in 0..msg.len() / 4 {
-                    reply[r].push(u64::from(self.tree.leaf[0][entry_cell[e]][rung]));
-                    e += 1;
-                }
-            }
+            // Each entry's leaf level goes back to its sender, one word per entry.
+            let reply: Vec<Vec<u64>> = own
+                .entries
+                .iter()
+                .map(|e| {
+                    e.iter()
+                        .map(|&g| u64::from(self.tree.leaf[0][g][rung]))
+                        .collect()
+                })
+                .collect();
             words += reply.iter().map(|v| v.len() as u64).sum::<u64>();
             let answers = comm.exchange(&reply);
             let mut lv = vec![0u8; cells];
-            let mut next = vec![0usize; ranks];
-            for c in 0..cells {
-                let o = owner(mesh.lift(self.fine.keys[c], MAX_LEVEL), ranks);
-                lv[c] = answers[o][next[o]] as u8;
-                next[o] += 1;
+            for (o, sent) in own.sent.iter().enumerate() {
+                for (j, &c) in sent.iter().enumerate() {
+                    lv[c] = answers[o][j] as u8;
+                }
             }
             levels = lv;
         }
