@@ -104,3 +104,51 @@ fn trap_table_holds_only_the_kernel_part() {
     check(t, &|x| ob.kernel_part(x), "bump", 1e-5, 1e-4);
     assert!(s.one_body.force.stiffness > 0.0);
 }
+
+/// On a ring the kernel sees the potential continued one turn on (docs/method.md §2.5): a
+/// bump 20 nm (ten widths, so its tail at the seam is below 1e-20 of its height) from the
+/// right edge of a periodic 160 nm box gives the same table as the open box with the bump
+/// and its two copies one turn away (−100 nm and 220 nm), at every mesh point — in
+/// particular near the left edge, where only the copy at −100 nm is within L_c/2 = 50 nm.
+/// Without the continuation those rows would be those of a bump-free region. Tolerance:
+/// rounding of the FFT sums, 1e-9 of the table's largest entry.
+#[test]
+fn ring_kernel_sees_the_potential_one_turn_on() {
+    let dir = tempfile::tempdir().unwrap();
+    let job = |boundary: &str, centres: &[f64]| {
+        let mut text = format!(
+            "[particles]\ncount = 1\nstatistics = \"distinguishable\"\nmass = 0.067\n\n\
+             [[orbital]]\nkind = \"gaussian\"\ncentre = -40.0\nwavevector = 0.5\nwidth = 8.0\n\n\
+             [domain]\nx_min = -80.0\nx_max = 80.0\nmesh_cells = 320\nboundary = \"{boundary}\"\nk_max = 2.5\n\n\
+             [numerics]\nsync_step = 1.0\nend_time = 10.0\nsamples = 1000\ncoherence_length = 100.0\n"
+        );
+        for c in centres {
+            text += &format!(
+                "\n[[potential]]\nkind = \"gaussian\"\ncentre = {c}\nwidth = 2.0\nheight = 0.04\n"
+            );
+        }
+        let path = common::write_job(dir.path(), &format!("{boundary}.toml"), &text);
+        setup_of(&path, &[])
+    };
+    let ring = job("periodic", &[60.0]);
+    let open = job("absorbing", &[-100.0, 60.0, 220.0]);
+    let (a, b) = (ring.table1.as_ref().unwrap(), open.table1.as_ref().unwrap());
+    assert_eq!((a.points, a.cap), (b.points, b.cap));
+    let peak = (0..b.points)
+        .flat_map(|j| b.row(j).iter())
+        .fold(0.0f64, |m, v| m.max(v.abs()));
+    let near_left = b.cell(-75.0).unwrap();
+    let edge_peak = b.row(near_left).iter().fold(0.0f64, |m, v| m.max(v.abs()));
+    assert!(
+        edge_peak > 1e-3 * peak,
+        "the copy at −100 nm reaches the left edge's rows ({edge_peak} of {peak})"
+    );
+    for j in 0..a.points {
+        for (x, y) in a.row(j).iter().zip(b.row(j)) {
+            assert!(
+                (x - y).abs() <= 1e-9 * peak,
+                "row {j}: ring {x} against open box with copies {y}"
+            );
+        }
+    }
+}
