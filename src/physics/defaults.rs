@@ -369,6 +369,13 @@ mod tests {
             .map(|c| c.cell)
             .collect();
         assert_eq!(copies, vec![-1, 1]);
+        // `check` and the job text stored in results say so.
+        let note = setup.images_note().expect("a note on the ring copies");
+        assert!(
+            note.starts_with("ring copies") && note.contains("2 in all"),
+            "{note}"
+        );
+        assert!(setup.text.contains("# ring copies"));
         assert!(setup.coherence_warnings().is_empty());
         let short = validation_job(
             "v12-periodic.toml",

@@ -343,10 +343,11 @@ impl Setup {
         .with_images_note())
     }
 
-    /// Append the wall-image note to the job text stored in results (once).
+    /// Append the wall-image (or ring-copy) note to the job text stored in results (once).
     fn with_images_note(mut self) -> Self {
         if let Some(note) = self.images_note()
             && !self.text.contains("# wall images")
+            && !self.text.contains("# ring copies")
         {
             self.text = format!("{}\n# {note}\n", self.text.trim_end());
         }
@@ -359,23 +360,31 @@ impl Setup {
         NBodyWigner::with_components(self.orbital_components.clone(), self.stats)
     }
 
-    /// For a reflecting box: how many wall images each orbital carries and why.
+    /// For a reflecting box: how many wall images each orbital carries and why; for a
+    /// periodic box whose content wraps: how many copies one turn away.
     pub fn images_note(&self) -> Option<String> {
-        if self.boundary != Boundary::Reflecting {
-            return None;
-        }
         let per: Vec<String> = self
             .orbital_components
             .iter()
             .map(|c| (c.len() - 1).to_string())
             .collect();
-        Some(format!(
-            "wall images (method of images, docs/method.md §2.5): {} in all ({} per orbital), those whose centre lies \
-             within v·t_end + 6σ of the box (v = ħ sqrt((|k₀| + 5/(2σ))² + 2mΔU/ħ²)/m, ΔU the range of the one-body \
-             potential in the box)",
-            self.image_count(),
-            per.join(", ")
-        ))
+        match self.boundary {
+            Boundary::Reflecting => Some(format!(
+                "wall images (method of images, docs/method.md §2.5): {} in all ({} per orbital), those whose centre \
+                 lies within v·t_end + 6σ of the box (v = ħ sqrt((|k₀| + 5/(2σ))² + 2mΔU/ħ²)/m, ΔU the range of the \
+                 one-body potential in the box), at walls the orbital's content reaches with probability above 1e-5",
+                self.image_count(),
+                per.join(", ")
+            )),
+            Boundary::Periodic if self.image_count() > 0 => Some(format!(
+                "ring copies (docs/method.md §2.5): {} in all ({} per orbital), each orbital whose content can wrap \
+                 round the box carries its copies one turn away (±L), so that its coherence with itself across the \
+                 edge is in the initial state",
+                self.image_count(),
+                per.join(", ")
+            )),
+            _ => None,
+        }
     }
 
     /// Number of wall-image components over all orbitals (0 without reflecting walls).
