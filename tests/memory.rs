@@ -1,8 +1,6 @@
 //! `check`'s memory forecast against the peak resident size of a real run.
 //!
-//! One test only: the peak resident size of child processes (getrusage RUSAGE_CHILDREN) is
-//! a maximum over every child this test binary has waited for, so no other test may run
-//! children beside it.
+//! Each run's own peak resident size comes from wait4's rusage of that child process.
 
 mod common;
 
@@ -12,8 +10,8 @@ use signfold::io::results::ResultFile;
 use std::collections::BTreeMap;
 
 /// One electron over a shallow well (jobs/validation/v03-well.toml at a fifth of the
-/// particles and 60 % of the time): the count grows steadily and reaches its budget. Fixed
-/// resolution: the adaptive pass's merge tree is not yet in the model (engine::memory).
+/// particles and 60 % of the time): the count grows steadily and reaches its budget. Run
+/// with both resolutions (the adaptive pass adds its merge tree and leaf buffers).
 const JOB: &str = r#"
 [particles]
 count = 1
@@ -49,7 +47,7 @@ seed = 103
 
 [annihilation]
 cell_x = 0.5
-resolution = "fixed"
+resolution = "RESOLUTION"
 
 [output]
 interval = 10.0
@@ -57,27 +55,33 @@ x_bins = 140
 k_bins = 100
 "#;
 
-/// `signfold run ARGS` with glibc's mmap threshold fixed at its default 128 KiB. The model
+/// `signfold run ARGS` with glibc's mmap threshold fixed at its default 128 KiB, and the
+/// peak resident size (bytes) of that process alone (wait4's rusage of the child). The model
 /// takes a growing vector's resident size to be its largest length (large blocks are
 /// mapped pages, moved by the kernel when they grow); glibc's dynamic threshold instead
 /// serves vectors below 32 MiB from the heap after the first large free, where a grown
 /// vector's earlier copies can stay resident (up to its size again, not modelled; the
 /// measurements in scaling-results/MEMORY.md include it).
-fn run_mapped(args: &[&str]) -> std::process::Output {
-    std::process::Command::new(bin())
+// The child is reaped by wait4 (which also gives its rusage), not by `Child::wait`.
+#[allow(clippy::zombie_processes)]
+fn run_mapped(args: &[&str]) -> f64 {
+    let child = std::process::Command::new(bin())
         .arg("run")
         .args(args)
         .env("MALLOC_MMAP_THRESHOLD_", "131072")
-        .output()
-        .expect("the signfold binary runs")
-}
-
-/// Largest resident size (bytes) of any child process waited for so far.
-fn children_peak_rss() -> f64 {
+        .stdout(std::process::Stdio::null())
+        .stderr(std::process::Stdio::null())
+        .spawn()
+        .expect("the signfold binary runs");
+    let mut status = 0;
     let mut u: libc::rusage = unsafe { std::mem::zeroed() };
-    // SAFETY: getrusage writes into the struct we own; RUSAGE_CHILDREN is a valid target.
-    let rc = unsafe { libc::getrusage(libc::RUSAGE_CHILDREN, &mut u) };
-    assert_eq!(rc, 0, "getrusage");
+    // SAFETY: wait4 on our own child's pid writes into the status and struct we own.
+    let pid = unsafe { libc::wait4(child.id() as libc::pid_t, &mut status, 0, &mut u) };
+    assert_eq!(pid, child.id() as libc::pid_t, "wait4");
+    assert!(
+        libc::WIFEXITED(status) && libc::WEXITSTATUS(status) == 0,
+        "signfold run {args:?} failed (status {status})"
+    );
     u.ru_maxrss as f64 * 1024.0 // kilobytes on Linux
 }
 
@@ -162,19 +166,27 @@ fn parse(text: &str) -> Printed {
 /// - annihilation candidates: between (1 − s)/2 and (1 + s)/2 of the particles.
 #[test]
 fn forecast_brackets_the_peak_resident_memory_of_a_run() {
+    for resolution in ["fixed", "adaptive"] {
+        brackets(resolution);
+    }
+}
+
+fn brackets(resolution: &str) {
     let dir = tempfile::tempdir().unwrap();
-    let job = write_job(dir.path(), "well.toml", JOB);
+    let job = write_job(
+        dir.path(),
+        "well.toml",
+        &JOB.replace("RESOLUTION", resolution),
+    );
     let job_s = job.to_str().unwrap();
     let small = ["--set", "numerics.samples=200"];
-    // The small run first: the children's peak is a maximum over all children so far.
+    // A run with almost no samples, then the job itself.
     let out_small = dir.path().join("small");
     let mut args = vec![job_s, "--out", out_small.to_str().unwrap()];
     args.extend_from_slice(&small);
-    ok(&run_mapped(&args));
-    let rss_small = children_peak_rss();
+    let rss_small = run_mapped(&args);
     let out_big = dir.path().join("big");
-    ok(&run_mapped(&[job_s, "--out", out_big.to_str().unwrap()]));
-    let rss_big = children_peak_rss();
+    let rss_big = run_mapped(&[job_s, "--out", out_big.to_str().unwrap()]);
     // `check` after both runs (it needs far less memory than the big run).
     let big = parse(&ok(&signfold(&["check", job_s])));
     let mut args = vec!["check", job_s];
@@ -222,7 +234,7 @@ fn forecast_brackets_the_peak_resident_memory_of_a_run() {
     let slots = signfold::engine::memory::hash_slots(big.cells * hi_scale) * 24.0;
     let hi = part(&big) * hi_scale + slots;
     println!(
-        "forecast particle part {:.1} MiB, measured {:.1} MiB (big {:.1}, small {:.1}), bracket [{:.1}, {:.1}] MiB",
+        "{resolution}: forecast particle part {:.1} MiB, measured {:.1} MiB (big {:.1}, small {:.1}), bracket [{:.1}, {:.1}] MiB",
         forecast / MIB,
         measured / MIB,
         rss_big / MIB,
@@ -232,7 +244,7 @@ fn forecast_brackets_the_peak_resident_memory_of_a_run() {
     );
     assert!(
         measured >= lo && measured <= hi,
-        "peak resident growth {:.1} MiB outside the model's bracket [{:.1}, {:.1}] MiB (forecast {:.1} MiB)",
+        "{resolution}: peak resident growth {:.1} MiB outside the model's bracket [{:.1}, {:.1}] MiB (forecast {:.1} MiB)",
         measured / MIB,
         lo / MIB,
         hi / MIB,
