@@ -118,13 +118,16 @@ pub fn annihilator_bytes() -> AnnihilatorBytes {
         per_candidate: u64_b + usize_b,
         per_cell: u128_b + 2.0 * u64_b + decision + usize_b,
         per_slot: 3.0 * u64_b,
-        // owned keys, owned_plus + owned_minus, owned_holders, sent_cells, entry_cell.
+        // engine::owners: the owned key, plus + minus, holders, the entry and sent indices.
         per_cell_owner: u128_b + 2.0 * u64_b + 2.0 * u64_b + usize_b + usize_b,
         // cell_of (the particles' finest cells; leaf keys are per cell, not per particle).
         per_particle_adaptive: usize_b,
-        // fine key, plus + minus, leaf key; owned key, plus + minus; the annihilator's
-        // leaf index per finest cell.
-        per_cell_adaptive: (u128_b + 2.0 * u64_b + u128_b) + (u128_b + 2.0 * u64_b) + usize_b,
+        // fine key, plus + minus, leaf key; at the owners (engine::owners) the owned key,
+        // plus + minus, holders, the entry and sent indices; the annihilator's leaf index
+        // per finest cell.
+        per_cell_adaptive: (u128_b + 2.0 * u64_b + u128_b)
+            + (u128_b + 4.0 * u64_b + 2.0 * usize_b)
+            + usize_b,
     }
 }
 
