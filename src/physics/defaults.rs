@@ -415,6 +415,41 @@ mod tests {
         assert!(setup.coherence_warnings().is_empty());
     }
 
+    /// Two fermions without a pair term over the double barrier: each orbital evolves under
+    /// the one-body Hamiltonian alone, so the resonance rule holds for each as for one
+    /// particle; with a pair term it is not applied (the interaction shifts resonances).
+    #[test]
+    fn non_interacting_identical_particles_meet_the_same_resonance() {
+        let mut loaded = validation_job("v02-double-barrier.toml", true, &[]);
+        resolve(&mut loaded).unwrap();
+        let one_body = one_body_of(&loaded).unwrap();
+        let single = resonance::resonances(&loaded.job, &one_body);
+        let mut pair = loaded.job.clone();
+        pair.particles.count = 2;
+        pair.particles.statistics = job::Statistics::Fermion;
+        let job::Orbital::Gaussian {
+            centre,
+            wavevector,
+            width,
+        } = pair.orbitals[0].clone();
+        pair.orbitals.push(job::Orbital::Gaussian {
+            centre: centre - 30.0,
+            wavevector,
+            width,
+        });
+        let both = resonance::resonances(&pair, &one_body);
+        assert_eq!(single.len(), 1);
+        assert_eq!(both.len(), 2, "one resonance met by each orbital: {both:?}");
+        for r in &both {
+            assert!((r.coherence_length - single[0].coherence_length).abs() < 1e-9);
+        }
+        pair.pair = job::Pair::SoftCoulomb {
+            permittivity: 12.9,
+            softening: 1.0,
+        };
+        assert!(resonance::resonances(&pair, &one_body).is_empty());
+    }
+
     #[test]
     fn a_coherence_length_too_short_for_the_resonance_is_warned_about() {
         // Measured (noise-free density-matrix solution of the windowed equation, earlier

@@ -236,14 +236,15 @@ pub struct Resonance {
 }
 
 /// The resonances of a one-body scattering job that carry weight, the one needing the
-/// longest coherence first. Empty when the job is not one-body scattering (more than one
-/// particle unless distinguishable without a pair term, a boundary that is not absorbing,
+/// longest coherence first. Several particles without a pair term count as one-body
+/// scattering whatever their statistics: each orbital evolves under the one-body
+/// Hamiltonian alone (the antisymmetrised or symmetrised state is built from the evolved
+/// orbitals), so each meets the resonances of T(k) as a single particle would. Empty when
+/// the job is not one-body scattering (a pair term, a boundary that is not absorbing,
 /// a field or trap, a potential that is not constant near both edges), for orbitals that
 /// start inside the potential's range, and when nothing resonates.
 pub fn resonances(job: &Job, one_body: &OneBody) -> Vec<Resonance> {
-    let n = job.particles.count;
-    let one_body_only =
-        n == 1 || (!job.particles.statistics.identical() && matches!(job.pair, Pair::None));
+    let one_body_only = job.particles.count == 1 || matches!(job.pair, Pair::None);
     if !one_body_only
         || job.domain.boundary != Boundary::Absorbing
         || !one_body.force.is_zero()
