@@ -159,7 +159,14 @@ pub fn resume(
     collective(check_until(until))?;
     install_signals()?;
     let walltime = collective(walltime.as_deref().map(parse_walltime).transpose())?;
-    collective(driver::resume(dir, until, walltime, world, &mut show))?;
+    collective(driver::resume(
+        dir,
+        until,
+        walltime,
+        world.ranks_on_node(),
+        world,
+        &mut show,
+    ))?;
     Ok(ExitCode::SUCCESS)
 }
 

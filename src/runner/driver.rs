@@ -123,11 +123,13 @@ fn claim_dir(
     Ok(lock)
 }
 
-/// Continue the run in `dir` from its newest valid checkpoint, on any number of ranks.
+/// Continue the run in `dir` from its newest valid checkpoint, on any number of ranks;
+/// `ranks_on_node` (of this rank's node) sets the memory cap per rank as `run` does.
 pub fn resume(
     dir: &Path,
     until: Option<f64>,
     walltime: Option<std::time::Duration>,
+    ranks_on_node: usize,
     comm: &dyn Comm,
     progress: Sink,
 ) -> Result<Ending> {
@@ -154,7 +156,12 @@ pub fn resume(
     timers.add(Phase::Initial, started);
     let t0 = Instant::now();
     let restored = checkpoint::newest_valid(dir, comm)?;
-    let setup = Setup::new(&restored.job)?;
+    let mut setup = Setup::new(&restored.job)?;
+    // The memory cap of the loop (docs/method.md §3): the job's numerics.memory_limit_mib,
+    // else the node's available memory shared by its ranks, the smallest over the ranks —
+    // the ranks of a resume may share nodes differently from the run's.
+    let (cap, _) = crate::engine::memory::available_per_rank(&setup, ranks_on_node);
+    setup.memory_limit = -comm.max_f64(-cap);
     // The tables rebuilt here must be those the run was written with (every rank checks).
     let (note, checked) = match checkpoint::verify_numerics(
         restored.numerics_hash.as_deref(),
