@@ -285,7 +285,6 @@ pub fn difference_test(
 ) -> ScalarTest {
     let se = (se_a * se_a + se_b * se_b).sqrt();
     let nu = welch_dof(se_a, se_b, groups);
-    // scalar_test with ν + 1 "groups" uses ν degrees of freedom.
     scalar_test_nu(a, se, b, nu, tolerance)
 }
 

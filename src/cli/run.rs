@@ -72,6 +72,13 @@ fn systematic(
     use signfold::study::systematic::{self, Outcome};
     let root = signfold::engine::comm::Comm::is_root(world);
     let read = |dir: &Path| ResultFile::read(&dir.join(names::OBSERVABLES_FILE));
+    // The base run, read once (rank 0 compares).
+    let base = if root {
+        Some(collective(read(&args.out))?)
+    } else {
+        None
+    };
+    let groups = loaded.job.numerics.groups as usize;
     let mut results = Vec::new();
     for v in systematic::variants(loaded, budget) {
         let out = args.out.join("systematic").join(v.tag);
@@ -106,12 +113,12 @@ fn systematic(
             walltime: None,
         };
         collective(driver::run(&loaded_v, &setup, &opts, world, &mut show))?;
-        let outcome = if root {
-            let (base, var) = (collective(read(&args.out))?, collective(read(&out))?);
-            let groups = loaded.job.numerics.groups as usize;
-            Outcome::Compared(systematic::compare_runs(v.label, groups, &base, &var))
-        } else {
-            Outcome::Compared(Vec::new())
+        let outcome = match &base {
+            Some(base) => {
+                let var = collective(read(&out))?;
+                Outcome::Compared(systematic::compare_runs(v.label, groups, base, &var))
+            }
+            None => Outcome::Compared(Vec::new()),
         };
         results.push((v, outcome));
     }

@@ -393,12 +393,18 @@ mod tests {
         assert!(!ring_wraps(&brief).unwrap());
     }
 
-    #[test]
-    fn the_default_coherence_length_of_the_double_barrier_meets_its_resonance() {
-        // The job leaves L_c unset (and `unset` would drop it if it did not).
+    /// v02 with L_c left to the engine, resolved, and its one-body potential.
+    fn double_barrier() -> (LoadedJob, OneBody) {
         let mut loaded = validation_job("v02-double-barrier.toml", true, &[]);
         resolve(&mut loaded).unwrap();
         let one_body = one_body_of(&loaded).unwrap();
+        (loaded, one_body)
+    }
+
+    #[test]
+    fn the_default_coherence_length_of_the_double_barrier_meets_its_resonance() {
+        // The job leaves L_c unset (and `unset` would drop it if it did not).
+        let (loaded, one_body) = double_barrier();
         let res = resonance::resonances(&loaded.job, &one_body);
         // The quasi-bound level between the two barriers: one resonance in the packet's
         // range (k₀ ± 5/(2σ) = 0.45 ± 0.125/nm), below the barrier tops.
@@ -420,9 +426,7 @@ mod tests {
     /// particle; with a pair term it is not applied (the interaction shifts resonances).
     #[test]
     fn non_interacting_identical_particles_meet_the_same_resonance() {
-        let mut loaded = validation_job("v02-double-barrier.toml", true, &[]);
-        resolve(&mut loaded).unwrap();
-        let one_body = one_body_of(&loaded).unwrap();
+        let (loaded, one_body) = double_barrier();
         let single = resonance::resonances(&loaded.job, &one_body);
         let mut pair = loaded.job.clone();
         pair.particles.count = 2;
