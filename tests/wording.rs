@@ -21,6 +21,8 @@ fn line<'a>(text: &'a str, prefix: &str) -> &'a str {
 #[test]
 fn check_speaks_the_job_file_words() {
     let dir = tempfile::tempdir().unwrap();
+    // Equal-width orbitals far from the walls: the centre of mass separates and the cells
+    // are relative to it; a wider second orbital gives full cells.
     for (from, to, words) in [
         (
             "",
@@ -28,7 +30,7 @@ fn check_speaks_the_job_file_words() {
             [
                 "statistics \"fermion\"",
                 "boundary \"absorbing\"",
-                "coordinates \"full\"",
+                "coordinates \"relative\"",
             ],
         ),
         (
@@ -37,7 +39,7 @@ fn check_speaks_the_job_file_words() {
             [
                 "statistics \"boson\"",
                 "boundary \"absorbing\"",
-                "coordinates \"full\"",
+                "coordinates \"relative\"",
             ],
         ),
         (
@@ -46,6 +48,15 @@ fn check_speaks_the_job_file_words() {
             [
                 "statistics \"fermion\"",
                 "boundary \"reflecting\"",
+                "coordinates \"relative\"",
+            ],
+        ),
+        (
+            "width = 5.0\n\n[domain]",
+            "width = 6.0\n\n[domain]",
+            [
+                "statistics \"fermion\"",
+                "boundary \"absorbing\"",
                 "coordinates \"full\"",
             ],
         ),
@@ -60,7 +71,14 @@ fn check_speaks_the_job_file_words() {
         for w in words {
             assert!(out.contains(w), "`{w}` in\n{out}");
         }
-        for debug in ["Fermion", "Boson", "Absorbing", "Reflecting", "Full"] {
+        for debug in [
+            "Fermion",
+            "Boson",
+            "Absorbing",
+            "Reflecting",
+            "Full",
+            "Relative",
+        ] {
             assert!(!out.contains(debug), "Rust name `{debug}` in\n{out}");
         }
     }

@@ -105,6 +105,17 @@ pub enum PotentialTerm {
     Harmonic { centre: f64, hbar_omega: f64 },
 }
 
+impl PotentialTerm {
+    /// Whether the term enters the Wigner kernel (transfers momentum to single particles);
+    /// `field` and `harmonic`, at most quadratic, act as classical forces instead.
+    pub fn is_kernel(&self) -> bool {
+        !matches!(
+            self,
+            PotentialTerm::Field { .. } | PotentialTerm::Harmonic { .. }
+        )
+    }
+}
+
 #[derive(Deserialize, Serialize, Clone, Debug, PartialEq, Default)]
 #[serde(tag = "kind", rename_all = "kebab-case", deny_unknown_fields)]
 pub enum Pair {
@@ -150,7 +161,8 @@ pub enum CellKind {
     /// Cells in every particle's (x, k).
     #[default]
     Full,
-    /// Cells in coordinates relative to the centre of mass (no one-body potential only).
+    /// Cells in coordinates relative to the centre of mass, which is left unbinned (no
+    /// kernel one-body potential only: a field or trap moves the centre of mass classically).
     Relative,
 }
 
@@ -186,9 +198,10 @@ pub struct Annihilation {
     /// are used for that pass (and reported).
     pub budget: Option<u64>,
     /// The coordinates the cells are taken in (`annihilation.coordinates`; read from
-    /// `annihilation.cells` with a warning, format version 1).
+    /// `annihilation.cells` with a warning, format version 1). Unset: chosen by
+    /// `physics::defaults` ("relative" where the centre of mass separates exactly).
     #[serde(default)]
-    pub coordinates: CellKind,
+    pub coordinates: Option<CellKind>,
     /// Merge a cell with its images under particle exchange (identical particles only).
     #[serde(default = "yes")]
     pub merge_exchange: bool,
@@ -202,7 +215,7 @@ impl Default for Annihilation {
             resolution: Resolution::Adaptive,
             trigger: default_trigger(),
             budget: None,
-            coordinates: CellKind::Full,
+            coordinates: None,
             merge_exchange: true,
         }
     }
@@ -926,17 +939,20 @@ pub fn validate(job: &Job) -> Result<(), JobError> {
             format!("must be greater than 1 (got {})", a.trigger),
         ));
     }
-    if a.coordinates == CellKind::Relative && !job.potentials.is_empty() {
+    if a.coordinates == Some(CellKind::Relative)
+        && job.potentials.iter().any(PotentialTerm::is_kernel)
+    {
         return Err(conflict(
             "annihilation.coordinates",
             "potential",
-            "annihilation.coordinates = \"relative\" needs a job without one-body potential terms: \
-             with a one-body potential the centre of mass carries sign structure and unbinned \
-             centre-of-mass cells would bias the result"
+            "annihilation.coordinates = \"relative\" needs a job whose one-body potential is at most \
+             quadratic (`field`, `harmonic`): a barrier, well, Gaussian or table term transfers \
+             momentum to single particles, so the centre of mass carries sign structure and \
+             unbinned centre-of-mass cells would bias the result"
                 .to_string(),
         ));
     }
-    if a.coordinates == CellKind::Relative && n < 2 {
+    if a.coordinates == Some(CellKind::Relative) && n < 2 {
         return Err(conflict(
             "annihilation.coordinates",
             "particles.count",

@@ -163,6 +163,13 @@ pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
             setup.gamma_max
         ));
     }
+    if loaded.job.annihilation.coordinates.is_none() {
+        let (kind, why) = annihilation_coordinates(loaded)?;
+        loaded.job.annihilation.coordinates = Some(kind);
+        if kind == job::CellKind::Relative {
+            notes.push(format!("annihilation.coordinates = \"relative\"  # {why}"));
+        }
+    }
     // A stored job (checkpoint) already carries the notes: the values are derived again,
     // identically, and the text stays as it was.
     if !notes.is_empty() && !loaded.text.contains(NOTES_HEADER) {
@@ -183,6 +190,66 @@ pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
             error,
         })
     })
+}
+
+/// The coordinates annihilation cells are taken in, and why (docs/method.md §3, "Centre of
+/// mass"): relative to the centre of mass, which is then left unbinned, when the N-body
+/// Wigner function is exactly a product W_cm(X, K)·W_rel(relative coordinates) at every
+/// time, so that both signs share the centre-of-mass distribution in every relative cell
+/// and merging over it cancels nothing it should keep. That holds when
+/// - there are at least two particles (of one mass, as every job has),
+/// - the one-body potential is at most quadratic (`field`, `harmonic`): then
+///   H = H_cm + H_rel, the centre of mass moves classically (no kernel term acts on it;
+///   the pair kernel transfers +q and −q and keeps K), and the signs live in W_rel alone,
+/// - all orbitals are Gaussians of one width σ: each product φ_a(x_1)…φ_z(x_N) of them is
+///   exp(−N(X − x̄)²/(4σ²) + i k̄_tot X) times a function of the relative coordinates, with
+///   x̄ and the total wavevector the same for every permutation, so the (anti)symmetrised
+///   state factorises,
+/// - no orbital's content reaches a boundary by the end time (probability ≤
+///   [`images::WALL_REACH_PROBABILITY`] per wall, the test that decides wall images): a
+///   wall, an absorber or a ring's seam acts on single particles and would couple the two.
+///
+/// Otherwise the cells are taken in every particle's own (x, k) ("full").
+pub fn annihilation_coordinates(loaded: &LoadedJob) -> Result<(job::CellKind, String)> {
+    let j = &loaded.job;
+    let full = |why: &str| Ok((job::CellKind::Full, why.to_string()));
+    if j.particles.count < 2 {
+        return full("one particle");
+    }
+    if j.potentials.iter().any(PotentialTerm::is_kernel) {
+        return full("a kernel one-body potential acts on single particles");
+    }
+    let orbitals: Vec<Gaussian> = j.orbitals.iter().map(Gaussian::from).collect();
+    let sigma = orbitals[0].sigma;
+    if orbitals
+        .iter()
+        .any(|o| (o.sigma - sigma).abs() > 1e-12 * sigma)
+    {
+        return full("orbitals of different widths: the centre of mass does not factor out");
+    }
+    let one_body = one_body_of(loaded)?;
+    let mass = units::mass_from_electron_masses(j.particles.mass);
+    let (lo, hi) = (j.domain.x_min, j.domain.x_max);
+    let end = j.numerics.end_time;
+    let reached = orbitals.iter().map(|g| {
+        [lo, hi]
+            .iter()
+            .map(|&wall| images::wall_reach_probability(g, &one_body, mass, lo, hi, wall, end))
+            .fold(0.0, f64::max)
+    });
+    let worst = reached.fold(0.0, f64::max);
+    if worst > images::WALL_REACH_PROBABILITY {
+        return full("the orbitals reach a boundary by the end time");
+    }
+    Ok((
+        job::CellKind::Relative,
+        format!(
+            "the centre of mass separates exactly: {} Gaussian orbitals of one width ({sigma} nm), a one-body \
+             potential at most quadratic, no boundary reached by the end time (largest probability {worst:.1e}); \
+             cells in coordinates relative to it, the centre of mass unbinned (docs/method.md §3)",
+            orbitals.len()
+        ),
+    ))
 }
 
 /// Whether the job is a periodic box whose content can wrap around it by the end time
@@ -499,5 +566,68 @@ mod tests {
         assert_eq!(round_down_125(0.73), 0.5);
         assert_eq!(round_down_125(3.9), 2.0);
         assert_eq!(round_down_125(12.0), 10.0);
+    }
+
+    /// v09 (two fermions, trap and soft Coulomb) with `edit` applied to its text, before
+    /// the defaults are derived.
+    fn edited_v09(edit: impl Fn(String) -> String) -> Result<LoadedJob> {
+        let dir = Path::new(env!("CARGO_MANIFEST_DIR")).join("jobs/validation");
+        let name = "v09-fermions-trap-coulomb.toml";
+        let text = edit(std::fs::read_to_string(dir.join(name)).expect("a validation job"));
+        job::from_text(&text, name, dir, &[])
+    }
+
+    fn coordinates_of(loaded: &LoadedJob) -> job::CellKind {
+        let mut l = loaded.clone();
+        resolve(&mut l).expect("defaults derive");
+        l.job.annihilation.coordinates.expect("derived")
+    }
+
+    /// Where the centre of mass separates (equal-width Gaussians, a trap, walls out of
+    /// reach) the cells are relative to it, and the job text says why; each broken
+    /// condition gives full cells; a job's own choice is kept.
+    #[test]
+    fn relative_cells_exactly_where_the_centre_of_mass_separates() {
+        use job::CellKind::{Full, Relative};
+        let same = |t: String| t;
+        let mut l = edited_v09(same).unwrap();
+        resolve(&mut l).unwrap();
+        assert_eq!(l.job.annihilation.coordinates, Some(Relative));
+        assert!(
+            l.text.contains(
+                "annihilation.coordinates = \"relative\"  # the centre of mass separates"
+            )
+        );
+        let v10 = validation_job("v10-three-fermions-coulomb.toml", false, &[]);
+        assert_eq!(coordinates_of(&v10), Relative);
+        // One orbital a little wider: the permutations' centre-of-mass factors differ.
+        let wider = edited_v09(|t| t.replacen("width = 5.3", "width = 5.0", 1)).unwrap();
+        assert_eq!(coordinates_of(&wider), Full);
+        // A kernel term (a Gaussian bump) acts on single particles.
+        let bump = "[[potential]]\nkind = \"gaussian\"\ncentre = 0.0\nwidth = 3.0\nheight = 0.01\n\n[numerics]";
+        let bumped = edited_v09(|t| t.replacen("[numerics]", bump, 1)).unwrap();
+        assert_eq!(coordinates_of(&bumped), Full);
+        // A box the packets reach within the run.
+        let small = edited_v09(|t| {
+            t.replacen("x_min = -80.0", "x_min = -24.0", 1).replacen(
+                "x_max = 80.0",
+                "x_max = 24.0",
+                1,
+            )
+        })
+        .unwrap();
+        assert_eq!(coordinates_of(&small), Full);
+        // The job's own choice stands.
+        let own = edited_v09(|t| t + "\n[annihilation]\ncoordinates = \"full\"\n").unwrap();
+        assert_eq!(coordinates_of(&own), Full);
+        // Asked for with a kernel term: refused, naming the key.
+        let refused = edited_v09(|t| {
+            t.replacen("[numerics]", bump, 1) + "\n[annihilation]\ncoordinates = \"relative\"\n"
+        });
+        let e = match refused {
+            Err(e) => format!("{e:#}"),
+            Ok(mut l) => format!("{:#}", resolve(&mut l).expect_err("refused")),
+        };
+        assert!(e.contains("annihilation.coordinates"), "{e}");
     }
 }

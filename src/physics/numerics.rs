@@ -325,7 +325,7 @@ impl Setup {
             k_bins: grid::k_bins(&job),
             cell_x,
             cell_k,
-            cells: job.annihilation.coordinates,
+            cells: job.annihilation.coordinates.unwrap_or_default(),
             resolution: job.annihilation.resolution,
             merge_exchange: job.annihilation.merge_exchange && job.particles.statistics.identical(),
             groups: job.numerics.groups,

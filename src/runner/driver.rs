@@ -509,9 +509,11 @@ fn binding_warning(setup: &Setup, annihilation: &Annihilation, pass: &Pass, t: f
     let (cx, ck) = annihilation.cell_sizes(pass.coarsest_level);
     format!(
         "t = {t} fs: the sample budget binds (annihilation.budget = {}): annihilation merged cells beyond the finest, \
-         up to {cx:.3} nm × {ck:.4} 1/nm (mean level {:.2}); in the validation suite every two- and three-body job \
-         whose count reached the default budget (10 × numerics.samples) showed a density or pair-density bias beyond \
-         its error bars, several of them with no other warning (docs/method.md §3.1): rerun with a larger budget and \
+         up to {cx:.3} nm × {ck:.4} 1/nm (mean level {:.2}); in the validation suite every two-body job with a kernel \
+         one-body potential (barrier, well, Gaussian, table) whose count reached the default budget \
+         (10 × numerics.samples) showed a density or pair-density bias beyond its error bars, several of them with no \
+         other warning (docs/method.md §3.1); the trapped fermions, with cells relative to the centre of mass, did \
+         not: rerun with a larger budget and \
          compare before trusting the result (`signfold run JOB --out DIR --systematic` does this)",
         setup.budget, pass.mean_level,
     )

@@ -34,6 +34,8 @@ impl Check {
     pub fn statistic(&self) -> f64 {
         match &self.kind {
             Kind::Scalar { test, .. } => test.z,
+            // The per-bin score, or the pooled sparse bins' when that is further out.
+            Kind::Binned(b) if b.pooled_z.abs() > b.z.abs() => b.pooled_z,
             Kind::Binned(b) => b.z,
         }
     }

@@ -153,9 +153,17 @@ pub fn compare(
             let v = mc.series.get(name)?;
             let e = mc.series.get(&names::error_of(name))?;
             let r = exact.series.get(name)?;
-            let test = stats::binned_test(v.frame(i), e.frame(i), r.frame(j), groups, |b| {
-                !upper || b / nx <= b % nx
-            });
+            // One sample adds 1/(S₀·dx) to a density bin, 1/(S₀·dx²) to a pair-density bin.
+            let dx = (mc.x.last()? - mc.x.first()?) / (nx.max(2) - 1) as f64;
+            let quantum = resolution / if upper { dx * dx } else { dx };
+            let test = stats::binned_test_against_exact(
+                v.frame(i),
+                e.frame(i),
+                r.frame(j),
+                groups,
+                quantum,
+                |b| !upper || b / nx <= b % nx,
+            );
             Some(Check {
                 job: job.into(),
                 time,
@@ -447,7 +455,7 @@ fn run_monte_carlo(loaded: &LoadedJob, dir: &Path) -> Result<(ResultFile, Vec<St
 
 fn csv_text(outcomes: &[JobOutcome]) -> String {
     let mut s = String::from(
-        "job,time_fs,observable,kind,statistic,passed,estimate,standard_error,exact,bins,empty_bins,mean_t2,expected_t2\n",
+        "job,time_fs,observable,kind,statistic,passed,estimate,standard_error,exact,bins,empty_bins,mean_t2,expected_t2,sparse_bins,pooled_z\n",
     );
     for o in outcomes {
         for c in &o.checks {
@@ -459,7 +467,7 @@ fn csv_text(outcomes: &[JobOutcome]) -> String {
                     ..
                 } => writeln!(
                     s,
-                    "{},{},{},scalar,{:.4},{},{estimate:.6e},{se:.3e},{exact:.6e},,,,",
+                    "{},{},{},scalar,{:.4},{},{estimate:.6e},{se:.3e},{exact:.6e},,,,,,",
                     c.job,
                     c.time,
                     c.observable,
@@ -468,7 +476,7 @@ fn csv_text(outcomes: &[JobOutcome]) -> String {
                 ),
                 Kind::Binned(b) => writeln!(
                     s,
-                    "{},{},{},binned,{:.4},{},,,,{},{},{:.4},{:.4}",
+                    "{},{},{},binned,{:.4},{},,,,{},{},{:.4},{:.4},{},{:.4}",
                     c.job,
                     c.time,
                     c.observable,
@@ -477,7 +485,9 @@ fn csv_text(outcomes: &[JobOutcome]) -> String {
                     b.bins,
                     b.empty_bins,
                     b.mean_t2,
-                    b.expected_t2
+                    b.expected_t2,
+                    b.sparse_bins,
+                    b.pooled_z
                 ),
             };
         }
@@ -594,8 +604,16 @@ fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
                 ),
                 Kind::Binned(b) => writeln!(
                     s,
-                    "- {} t = {} fs {}: Z = {:+.2}, mean t² {:.2} (expected {:.2}) over {} bins",
-                    o.name, c.time, c.observable, b.z, b.mean_t2, b.expected_t2, b.bins
+                    "- {} t = {} fs {}: Z = {:+.2}, mean t² {:.2} (expected {:.2}) over {} bins; {} sparse bins pooled: z = {:+.2}",
+                    o.name,
+                    c.time,
+                    c.observable,
+                    b.z,
+                    b.mean_t2,
+                    b.expected_t2,
+                    b.bins,
+                    b.sparse_bins,
+                    b.pooled_z
                 ),
             };
         }
