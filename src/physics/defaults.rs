@@ -205,9 +205,12 @@ pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
 ///   exp(−N(X − x̄)²/(4σ²) + i k̄_tot X) times a function of the relative coordinates, with
 ///   x̄ and the total wavevector the same for every permutation, so the (anti)symmetrised
 ///   state factorises,
-/// - no orbital's content reaches a boundary by the end time (probability ≤
-///   [`images::WALL_REACH_PROBABILITY`] per wall, the test that decides wall images): a
-///   wall, an absorber or a ring's seam acts on single particles and would couple the two.
+/// - no orbital's content reaches a reflecting wall or a periodic box's seam by the end
+///   time (probability ≤ [`images::WALL_REACH_PROBABILITY`] per wall, the test that decides
+///   wall images): a mirror or a wrap transforms one particle's coordinates and couples the
+///   two. Absorbing ends are allowed: they remove configurations by position, the same for
+///   both signs, and transform nothing; what couples the two there is only that a
+///   configuration's survival depends on its path (measured small, docs/method.md §3).
 ///
 /// Otherwise the cells are taken in every particle's own (x, k) ("full").
 pub fn annihilation_coordinates(loaded: &LoadedJob) -> Result<(job::CellKind, String)> {
@@ -227,6 +230,19 @@ pub fn annihilation_coordinates(loaded: &LoadedJob) -> Result<(job::CellKind, St
     {
         return full("orbitals of different widths: the centre of mass does not factor out");
     }
+    // Absorbing ends only remove configurations (by position, whatever the sign): they
+    // transform no coordinate, so they are allowed; walls and a ring's seam are not.
+    if j.domain.boundary == job::Boundary::Absorbing {
+        return Ok((
+            job::CellKind::Relative,
+            format!(
+                "the centre of mass separates: {} Gaussian orbitals of one width ({sigma} nm), a one-body \
+                 potential at most quadratic, absorbing ends (they remove configurations and transform no \
+                 coordinate); cells in coordinates relative to it, the centre of mass unbinned (docs/method.md §3)",
+                orbitals.len()
+            ),
+        ));
+    }
     let one_body = one_body_of(loaded)?;
     let mass = units::mass_from_electron_masses(j.particles.mass);
     let (lo, hi) = (j.domain.x_min, j.domain.x_max);
@@ -239,13 +255,13 @@ pub fn annihilation_coordinates(loaded: &LoadedJob) -> Result<(job::CellKind, St
     });
     let worst = reached.fold(0.0, f64::max);
     if worst > images::WALL_REACH_PROBABILITY {
-        return full("the orbitals reach a boundary by the end time");
+        return full("the orbitals reach a reflecting wall or a ring's seam by the end time");
     }
     Ok((
         job::CellKind::Relative,
         format!(
             "the centre of mass separates exactly: {} Gaussian orbitals of one width ({sigma} nm), a one-body \
-             potential at most quadratic, no boundary reached by the end time (largest probability {worst:.1e}); \
+             potential at most quadratic, no wall or seam reached by the end time (largest probability {worst:.1e}); \
              cells in coordinates relative to it, the centre of mass unbinned (docs/method.md §3)",
             orbitals.len()
         ),

@@ -422,7 +422,7 @@ pub fn command(opts: &Options, say: &mut dyn FnMut(String)) -> Result<(Vec<PathB
 }
 
 /// Norm carried by one sample: 1/S₀, S₀ the net sign count at t = 0.
-fn sample_resolution(mc: &ResultFile) -> f64 {
+pub fn sample_resolution(mc: &ResultFile) -> f64 {
     let first = |d: Dataset| mc.series.get(d.name).map_or(f64::NAN, |s| s.data[0]);
     let (pos, neg) = (
         first(names::SAMPLES_POSITIVE),
