@@ -285,7 +285,34 @@ impl Resolution {
         let mut words = 0u64;
         let levels: Vec<u8>;
         let mut counts = [0i64; RUNGS * (1 + LEVELS)];
-        if ranks == 1 {
+        if ranks > 1 {
+            words += self
+                .owners
+                .exchange(comm, &self.fine.keys, &self.plus, &self.minus, |key| {
+                    owner(mesh.lift(key, MAX_LEVEL), ranks)
+                });
+        }
+        // The first rung (no merging) needs no tree: when annihilation at the finest cells
+        // already leaves at most the target (a global sum of |P − Q| over the cells, each
+        // counted at its owner), every leaf is a finest cell — the tree's own answer.
+        let (plus, minus) = if ranks == 1 {
+            (&self.plus[..], &self.minus[..])
+        } else {
+            (&self.owners.plus[..], &self.owners.minus[..])
+        };
+        let mut finest = [0i64; 2];
+        for (&p, &m) in plus.iter().zip(minus) {
+            finest[0] += p.abs_diff(m) as i64;
+            if p > 0 && m > 0 {
+                finest[1] += (p + m) as i64;
+            }
+        }
+        comm.sum_i64(&mut finest);
+        if finest[0] as u64 <= target {
+            counts[0] = finest[0];
+            counts[RUNGS] = finest[1];
+            levels = vec![0u8; cells];
+        } else if ranks == 1 {
             let (after, by_level) = self
                 .tree
                 .build(mesh, &self.fine.keys, &self.plus, &self.minus);
@@ -294,11 +321,6 @@ impl Resolution {
             let rung = choose(&counts, target);
             levels = self.tree.leaf[0].iter().map(|l| l[rung]).collect();
         } else {
-            words += self
-                .owners
-                .exchange(comm, &self.fine.keys, &self.plus, &self.minus, |key| {
-                    owner(mesh.lift(key, MAX_LEVEL), ranks)
-                });
             let own = &self.owners;
             let (after, by_level) = self
                 .tree
