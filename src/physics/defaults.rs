@@ -1,7 +1,8 @@
 //! Numerics that follow from the physics when the job does not set them
-//! (docs/method.md §2.6): the coherence length, the momentum range and the synchronisation
-//! step. Each derived value, and why, is appended to the job text as comments, so every
-//! result file records it; a job that sets a key keeps its own value.
+//! (docs/method.md §2.6): the coherence length, the momentum range, the synchronisation
+//! step, and the coordinates of the annihilation cells (§3). Each derived value, and why,
+//! is appended to the job text as comments, so every result file records it; a job that
+//! sets a key keeps its own value.
 
 use crate::config::job::{self, LoadedJob, Pair, PotentialTerm};
 use crate::physics::images;
@@ -166,8 +167,12 @@ pub fn resolve(loaded: &mut LoadedJob) -> Result<()> {
     if loaded.job.annihilation.coordinates.is_none() {
         let (kind, why) = annihilation_coordinates(loaded)?;
         loaded.job.annihilation.coordinates = Some(kind);
-        if kind == job::CellKind::Relative {
-            notes.push(format!("annihilation.coordinates = \"relative\"  # {why}"));
+        let name = match kind {
+            job::CellKind::Relative => "relative",
+            job::CellKind::Full => "full",
+        };
+        if loaded.job.particles.count >= 2 {
+            notes.push(format!("annihilation.coordinates = \"{name}\"  # {why}"));
         }
     }
     // A stored job (checkpoint) already carries the notes: the values are derived again,
