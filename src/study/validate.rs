@@ -511,7 +511,9 @@ fn markdown(outcomes: &[JobOutcome], quick: bool) -> String {
          two-sided p-value of t = difference / standard error under Student's t with B − 1 degrees of \
          freedom (with B = 8 groups a |t| of 3.5 is a 1 % event, |z| = 3.5 a 0.05 % one); binned data pass with |Z| ≤ {ACCEPT}, Z being the normal score of the mean \
          per-bin p-value under Student's t with B − 1 degrees of freedom (two-sided: Z > 0 \
-         means error bars too large; see `src/analysis/stats.rs` and docs/method.md §4).\n",
+         means error bars too large), over the bins whose exact value is worth at least 16 \
+         samples; the others are pooled and the pool passes as a scalar (see \
+         `src/analysis/stats.rs` and docs/method.md §4).\n",
         if quick { " --quick" } else { "" }
     );
     let _ = writeln!(
