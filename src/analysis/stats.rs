@@ -256,7 +256,6 @@ pub fn binned_test_against_exact(
     quantum: f64,
     use_bin: impl Fn(usize) -> bool,
 ) -> BinnedTest {
-    let nu = groups as f64 - 1.0;
     let sparse = |i: usize| exact[i].abs() < SPARSE_SAMPLES * quantum;
     let (mut pv, mut pe2, mut px, mut pooled) = (0.0, 0.0, 0.0, 0usize);
     for i in (0..value.len()).filter(|&i| use_bin(i) && sparse(i)) {
@@ -265,10 +264,7 @@ pub fn binned_test_against_exact(
         pe2 += error[i] * error[i];
         pooled += 1;
     }
-    let dense = (0..value.len())
-        .filter(|&i| use_bin(i) && !sparse(i))
-        .map(|i| (error[i] > 0.0).then(|| ((value[i] - exact[i]) / error[i], nu)));
-    let mut test = binned_from(dense);
+    let mut test = binned_test(value, error, exact, groups, |i| use_bin(i) && !sparse(i));
     test.sparse_bins = pooled;
     if pooled > 0 {
         test.pooled_z = scalar_test(pv, pe2.sqrt(), px, groups, 3.0 * quantum).z;

@@ -154,7 +154,7 @@ pub fn compare(
             let e = mc.series.get(&names::error_of(name))?;
             let r = exact.series.get(name)?;
             // One sample adds 1/(S₀·dx) to a density bin, 1/(S₀·dx²) to a pair-density bin.
-            let dx = (mc.x.last()? - mc.x.first()?) / (nx.max(2) - 1) as f64;
+            let dx = bin_width(mc)?;
             let quantum = resolution / if upper { dx * dx } else { dx };
             let test = stats::binned_test_against_exact(
                 v.frame(i),
@@ -177,6 +177,11 @@ pub fn compare(
     out
 }
 
+/// Width of the x bins of a result file, nm (uniform bins, from their centres).
+fn bin_width(f: &ResultFile) -> Option<f64> {
+    Some((f.x.last()? - f.x.first()?) / (f.x.len().max(2) - 1) as f64)
+}
+
 /// Transmitted norm at frame `t`: `norm_right` with its error (Monte Carlo), or absorbed
 /// right plus the one-body norm at x > 0 (reference, which has no `norm_right`).
 fn transmitted_at(f: &ResultFile, t: usize) -> Option<(f64, f64)> {
@@ -187,7 +192,7 @@ fn transmitted_at(f: &ResultFile, t: usize) -> Option<(f64, f64)> {
         return Some((v.frame(t)[0], e.frame(t)[0]));
     }
     let d = f.series.get(names::DENSITY.name)?;
-    let dx = (f.x.last()? - f.x.first()?) / (f.x.len().max(2) - 1) as f64;
+    let dx = bin_width(f)?;
     let inside: f64 =
         f.x.iter()
             .zip(d.frame(t))
