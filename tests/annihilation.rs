@@ -185,7 +185,7 @@ fn adaptive_resolution_merges_alike_signs_and_keeps_patterns() {
         let mut res = Resolution::default();
         let out = res.resolve(&mesh, store, target, &Solo);
         let mut s = store.clone();
-        let rep = Annihilator::default().run(&setup, res.leaves(), &mut s, 1, &Solo);
+        let rep = Annihilator::default().run(&setup, res.leaves(&mesh), &mut s, 1, &Solo);
         assert_eq!(
             rep.after, out.after,
             "the tree predicts the annihilation exactly"

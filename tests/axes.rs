@@ -26,7 +26,9 @@ fn expected_axes(name: &str) -> Vec<&'static str> {
         "momentum_density" => vec!["time", "k"],
         n if n.starts_with("annihilation_") => vec!["annihilation_time"],
         "run/rank" => vec!["rank"],
-        "run/pass_rank" | "run/bytes_sent" | "run/occupied_cells" => vec!["pass_rank"],
+        "run/pass_rank" | "run/bytes_sent" | "run/messages_sent" | "run/occupied_cells" => {
+            vec!["pass_rank"]
+        }
         n if n.starts_with("run/seconds_") || n == "run/wall_seconds" => vec!["rank"],
         n if n.starts_with("run/") => vec!["single"],
         _ => vec!["time"],
@@ -121,6 +123,7 @@ fn monte_carlo_results_have_named_axes_and_units() {
         "run/rank",
         "run/seconds_advance",
         "run/bytes_sent",
+        "run/messages_sent",
         "run/ranks",
     ] {
         assert!(found.contains_key(name), "`{name}` missing: {found:?}");

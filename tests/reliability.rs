@@ -734,10 +734,10 @@ fn resume_refuses_tables_that_differ_from_the_checkpoint() {
     ok(&signfold(&["resume", o]));
 }
 
-/// The MPI exchange splits messages into rounds of at most SIGNFOLD_EXCHANGE_CHUNK_WORDS
-/// words per rank pair (for 64-bit counts beyond MPI's 32-bit ones); with a limit of 61
-/// words every annihilation pass takes many rounds, and 2 and 3 ranks still give the
-/// one-rank datasets bit for bit.
+/// The MPI exchange splits each message into pieces of at most
+/// SIGNFOLD_EXCHANGE_CHUNK_WORDS words (for 64-bit lengths beyond MPI's 32-bit counts); with
+/// a limit of 61 words every annihilation pass sends many pieces, and 2 and 3 ranks still
+/// give the one-rank datasets bit for bit.
 #[test]
 fn chunked_exchanges_give_identical_results() {
     let dir = tempfile::tempdir().unwrap();
@@ -770,14 +770,14 @@ fn chunked_exchanges_give_identical_results() {
     );
     for ranks in [2, 3] {
         let other = run(ranks);
-        // Each rank sends the (key, +, −) words of its occupied cells to their owners: at
-        // least 3·cells/P words to some rank, which must exceed the 61-word round.
-        let cells = &other.run["occupied_cells"].1;
-        let most = cells.iter().cloned().fold(0.0, f64::max);
+        // The largest message of a pass is at least its words / (messages per pass), which
+        // must fill ten 61-word pieces.
+        let most = |name: &str| other.run[name].1.iter().cloned().fold(0.0, f64::max);
+        let (bytes, messages) = (most("bytes_sent"), most("messages_sent"));
         assert!(
-            3.0 * most / ranks as f64 > 10.0 * 61.0,
-            "at least ten rounds in the largest pass ({most} cells)"
+            bytes / 8.0 / messages.max(1.0) > 10.0 * 61.0,
+            "at least ten pieces in the largest message ({bytes} B in {messages} messages)"
         );
-        assert_same_datasets(&base, &other, &format!("{ranks} ranks, 61-word rounds"));
+        assert_same_datasets(&base, &other, &format!("{ranks} ranks, 61-word pieces"));
     }
 }

@@ -68,6 +68,7 @@ fn quick_series_writes_csv_picture_and_machine_description() {
         "wall_s",
         "imbalance_advance",
         "bytes_sent_per_rank",
+        "messages_per_rank",
         "occupied_cells_per_rank",
         "efficiency",
     ]
@@ -111,11 +112,13 @@ fn quick_series_writes_csv_picture_and_machine_description() {
             assert!(num(r, "wall_s") > 0.0);
             assert!(num(r, "imbalance_advance") >= 1.0);
             // The quick barrier run annihilates at least once, so on several ranks the
-            // reduction sent data; one rank decides from its own counts and sends nothing.
+            // placement of the particles sent data; one rank sends nothing.
             if num(r, "ranks") > 1.0 {
                 assert!(num(r, "bytes_sent_per_rank") > 0.0, "{series}: bytes sent");
+                assert!(num(r, "messages_per_rank") > 0.0, "{series}: messages sent");
             } else {
                 assert_eq!(num(r, "bytes_sent_per_rank"), 0.0, "{series}: one rank");
+                assert_eq!(num(r, "messages_per_rank"), 0.0, "{series}: one rank");
             }
             assert!(num(r, "occupied_cells_per_rank") > 0.0, "{series}: cells");
         }
@@ -196,7 +199,7 @@ fn phase_times_account_for_each_ranks_wall_time() {
         passes > 0,
         "the run annihilates (else bytes_sent says nothing)"
     );
-    for name in ["bytes_sent", "occupied_cells"] {
+    for name in ["bytes_sent", "messages_sent", "occupied_cells"] {
         let v = get(name);
         assert_eq!(
             v.len(),

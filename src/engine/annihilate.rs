@@ -20,6 +20,7 @@
 
 use crate::engine::cell_table::{BATCH, CellTable, count_cells, prefetch};
 use crate::engine::comm::Comm;
+use crate::engine::home;
 use crate::engine::owners::Owners;
 pub use crate::physics::cells::CellMesh;
 use crate::physics::numerics::Setup;
@@ -27,10 +28,6 @@ use crate::physics::particles::Store;
 use crate::physics::rng::{self, tag};
 
 use rayon::prelude::*;
-
-fn owner(key: u128, ranks: usize) -> usize {
-    (rng::hash(&[key as u64, (key >> 64) as u64]) % ranks as u64) as usize
-}
 
 fn priority(setup: &Setup, store: &Store, p: usize, interval: u64) -> u64 {
     rng::hash(&[
@@ -48,9 +45,10 @@ fn priority(setup: &Setup, store: &Store, p: usize, interval: u64) -> u64 {
 pub struct Report {
     pub before: u64,
     pub after: u64,
-    /// Occupied cells on this rank and 64-bit words this rank sent.
+    /// Occupied cells on this rank; 64-bit words and messages this rank sent to others.
     pub local_cells: u64,
     pub words_sent: u64,
+    pub messages_sent: u64,
     /// Wall seconds of this rank in: keys and cell counts; the exchanges with the owners;
     /// the selection of survivors.
     pub binning_s: f64,
@@ -83,6 +81,7 @@ pub enum Cells<'a> {
     /// and per particle in store order its finest cell. Binning then hashes each finest cell
     /// once instead of each particle.
     Leaves {
+        mesh: &'a CellMesh,
         leaf_key: &'a [u128],
         cell_of: &'a [usize],
     },
@@ -93,7 +92,18 @@ impl Cells<'_> {
     fn key(&self, store: &Store, p: usize) -> u128 {
         match *self {
             Cells::Level(mesh, level) => mesh.key_at(store.xs(p), store.ks(p), store.id[p], level),
-            Cells::Leaves { leaf_key, cell_of } => leaf_key[cell_of[p]],
+            Cells::Leaves {
+                leaf_key, cell_of, ..
+            } => leaf_key[cell_of[p]],
+        }
+    }
+
+    /// The rank that decides the cell `key` ([`home::cell_owner`]).
+    fn owner(&self, key: u128, ranks: usize) -> usize {
+        match *self {
+            Cells::Level(mesh, _) | Cells::Leaves { mesh, .. } => {
+                home::cell_owner(mesh, key, ranks)
+            }
         }
     }
 }
@@ -138,10 +148,12 @@ impl Annihilator {
         comm: &dyn Comm,
     ) -> Report {
         let ranks = comm.size();
+        let sent_before = comm.sent();
         let mut before = [store.len() as i64];
         comm.sum_i64(&mut before);
         let t_start = std::time::Instant::now();
         // 1. Occupied cells of this rank with their (+, −) counts.
+        let cells_of = cells;
         self.bin(cells, store);
         let cells = self.table.len();
         let t_binned = std::time::Instant::now();
@@ -149,15 +161,24 @@ impl Annihilator {
         //    the owners of the keys.
         self.decision.clear();
         self.decision.resize(cells, Decision::default());
-        let mut words = 0u64;
-        if ranks == 1 {
+        // Cells whose owner is this rank hold all their particles here (`engine::home`):
+        // when that is so for every cell on every rank, the local counts are the global ones.
+        let me = comm.rank();
+        let all_local = ranks == 1
+            || !comm.any(
+                self.table
+                    .keys
+                    .iter()
+                    .any(|&key| cells_of.owner(key, ranks) != me),
+            );
+        if all_local {
             for c in 0..cells {
                 if let Some(d) = decide(self.plus[c], self.minus[c], 1, 1) {
                     self.decision[c] = d;
                 }
             }
         } else {
-            words += self.decide_with_owners(comm);
+            self.decide_with_owners(comm, cells_of);
         }
         let t_decided = std::time::Instant::now();
         // 3. Drop minority particles; gather the majority candidates per cell; select
@@ -182,7 +203,7 @@ impl Annihilator {
         let t_selected = std::time::Instant::now();
         // 4. Threshold exchange for cells whose majority particles live on several ranks.
         if ranks > 1 {
-            words += self.thresholds(comm);
+            self.thresholds(comm, cells_of);
         }
         let t_thresholds = std::time::Instant::now();
         store.retain(&self.keep);
@@ -190,11 +211,13 @@ impl Annihilator {
         let mut after = [store.len() as i64];
         comm.sum_i64(&mut after);
         let s = |a: std::time::Instant, b: std::time::Instant| (b - a).as_secs_f64();
+        let traffic = comm.sent() - sent_before;
         Report {
             before: before[0] as u64,
             after: after[0] as u64,
             local_cells: cells as u64,
-            words_sent: words,
+            words_sent: traffic.words,
+            messages_sent: traffic.messages,
             binning_s: s(t_start, t_binned),
             reduction_s: s(t_binned, t_decided) + s(t_selected, t_thresholds),
             selection_s: s(t_decided, t_selected) + s(t_thresholds, t_end),
@@ -221,7 +244,10 @@ impl Annihilator {
                     }
                 });
         }
-        if let Cells::Leaves { leaf_key, cell_of } = cells {
+        if let Cells::Leaves {
+            leaf_key, cell_of, ..
+        } = cells
+        {
             // One hash per finest cell: its leaf's local index; particles then look it up.
             self.table.clear(2 * self.table.len());
             self.plus.clear();
@@ -339,14 +365,13 @@ impl Annihilator {
 
     /// Send (key, +, −) of every local cell to its owner; the owners sum them and answer
     /// mixed cells with (majority sign, number kept, whether a threshold is needed).
-    /// Fills `decision`; returns the words this rank sent.
-    fn decide_with_owners(&mut self, comm: &dyn Comm) -> u64 {
+    /// Fills `decision`.
+    fn decide_with_owners(&mut self, comm: &dyn Comm, cells: Cells) {
         let ranks = comm.size();
-        let mut words =
-            self.owners
-                .exchange(comm, &self.table.keys, &self.plus, &self.minus, |key| {
-                    owner(key, ranks)
-                });
+        self.owners
+            .exchange(comm, &self.table.keys, &self.plus, &self.minus, |key| {
+                cells.owner(key, ranks)
+            });
         // Owner: each entry's cell decided from the global counts and holders.
         let own = &self.owners;
         let mut reply = vec![Vec::new(); ranks];
@@ -363,7 +388,6 @@ impl Annihilator {
                 }
             }
         }
-        words += reply.iter().map(|v| v.len() as u64).sum::<u64>();
         let decisions = comm.exchange(&reply);
         for (o, msg) in decisions.iter().enumerate() {
             for w in msg.chunks_exact(4) {
@@ -376,14 +400,13 @@ impl Annihilator {
                 };
             }
         }
-        words
     }
 
     /// For cells whose majority particles sit on several ranks: holders send their
     /// candidates' priorities to the owner, which returns the priority of the last survivor
     /// and how many particles at exactly that priority this rank keeps (ties go to lower
-    /// ranks first, and on a rank in store order). Returns the words this rank sent.
-    fn thresholds(&mut self, comm: &dyn Comm) -> u64 {
+    /// ranks first, and on a rank in store order).
+    fn thresholds(&mut self, comm: &dyn Comm, cells_of: Cells) {
         let ranks = comm.size();
         let cells = self.table.len();
         let mut ask = vec![Vec::new(); ranks];
@@ -398,15 +421,14 @@ impl Annihilator {
                 continue;
             }
             let key = self.table.keys[c];
-            let m = &mut ask[owner(key, ranks)];
+            let m = &mut ask[cells_of.owner(key, ranks)];
             m.extend_from_slice(&[key as u64, (key >> 64) as u64, range.len() as u64]);
             m.extend(self.cand[range].iter().map(|e| e.0));
             pending = true;
         }
         if !comm.any(pending) {
-            return 0;
+            return;
         }
-        let mut words = ask.iter().map(|v| v.len() as u64).sum::<u64>();
         let asked = comm.exchange(&ask);
         // Owner: (cell, priority, rank) of every candidate it was sent.
         let mut lists: Vec<(usize, u64, usize)> = Vec::new();
@@ -451,7 +473,6 @@ impl Annihilator {
             }
             i = j;
         }
-        words += answer.iter().map(|v| v.len() as u64).sum::<u64>();
         let answers = comm.exchange(&answer);
         for msg in &answers {
             for w in msg.chunks_exact(4) {
@@ -471,7 +492,6 @@ impl Annihilator {
                 }
             }
         }
-        words
     }
 }
 
@@ -515,46 +535,4 @@ pub fn annihilate(
     comm: &dyn Comm,
 ) -> Report {
     Annihilator::default().run(setup, Cells::Level(mesh, 0), store, interval, comm)
-}
-
-/// Even out particle counts over ranks (global order: rank, then position in the store).
-/// Returns the 64-bit words this rank sent.
-pub fn rebalance(store: &mut Store, comm: &dyn Comm) -> u64 {
-    let ranks = comm.size();
-    if ranks == 1 {
-        return 0;
-    }
-    let counts: Vec<u64> = comm
-        .gather_all(&[store.len() as u64])
-        .into_iter()
-        .map(|v| v[0])
-        .collect();
-    let total: u64 = counts.iter().sum();
-    let me = comm.rank();
-    let start: u64 = counts[..me].iter().sum();
-    let bound = |r: usize| total * r as u64 / ranks as u64;
-    let mut send = vec![Vec::new(); ranks];
-    let len = store.len() as u64;
-    let mut kept = Store::new(store.n);
-    for r in 0..ranks {
-        let (a, b) = (bound(r).max(start), bound(r + 1).min(start + len));
-        if a >= b {
-            continue;
-        }
-        let (fa, fb) = ((a - start) as usize, (b - start) as usize);
-        if r == me {
-            let mut w = Vec::new();
-            store.pack(fa, fb, &mut w);
-            kept.unpack(&w);
-        } else {
-            store.pack(fa, fb, &mut send[r]);
-        }
-    }
-    let sent = send.iter().map(|v| v.len() as u64).sum();
-    let recv = comm.exchange(&send);
-    *store = kept;
-    for msg in &recv {
-        store.unpack(msg);
-    }
-    sent
 }

@@ -11,6 +11,7 @@
 use crate::config::job::Resolution;
 use crate::engine::annihilate::{Annihilator, Cells, Report};
 use crate::engine::comm::Comm;
+use crate::engine::home::{self, Moved};
 use crate::engine::resolution::{self, LADDER, Z_STRUCTURE};
 use crate::physics::cells::{CellMesh, MAX_LEVEL};
 use crate::physics::numerics::Setup;
@@ -35,6 +36,9 @@ pub struct Pass {
     /// Share of the samples in cells holding both signs that were annihilated in cells
     /// coarser than the structure scales (`Setup::scale_level`).
     pub beyond_scales: f64,
+    /// What this rank sent to place its particles in their home cells before the pass
+    /// (its wall seconds are in the report's reduction time).
+    pub moved: Moved,
 }
 
 /// The cell hierarchy and the buffers of annihilation, kept for the whole run.
@@ -58,8 +62,25 @@ impl Annihilation {
         self.mesh.cell_sizes(level)
     }
 
-    /// Annihilate `store` in place (`interval` keys the survivor priorities).
+    /// Place the particles in their home cells ([`home::migrate`]), then annihilate
+    /// `store` in place (`interval` keys the survivor priorities).
     pub fn run(
+        &mut self,
+        setup: &Setup,
+        store: &mut Store,
+        interval: u64,
+        comm: &dyn Comm,
+    ) -> Pass {
+        let t0 = std::time::Instant::now();
+        let moved = home::migrate(&self.mesh, store, comm);
+        let placing_s = t0.elapsed().as_secs_f64();
+        let mut pass = self.annihilate(setup, store, interval, comm);
+        pass.moved = moved;
+        pass.report.reduction_s += placing_s;
+        pass
+    }
+
+    fn annihilate(
         &mut self,
         setup: &Setup,
         store: &mut Store,
@@ -70,11 +91,12 @@ impl Annihilation {
         match setup.resolution {
             Resolution::Adaptive => {
                 let out = self.resolution.resolve(&self.mesh, store, target, comm);
-                let cells = self.resolution.leaves();
+                let cells = self.resolution.leaves(&self.mesh);
                 let mut report = self.annihilator.run(setup, cells, store, interval, comm);
                 debug_assert_eq!(report.after, out.after, "the tree's count is exact");
                 report.binning_s += out.seconds;
-                report.words_sent += out.words_sent;
+                report.words_sent += out.traffic.words;
+                report.messages_sent += out.traffic.messages;
                 let mixed: u64 = out.mixed_by_level.iter().sum();
                 let beyond: u64 = out.mixed_by_level
                     [(setup.scale_level(crate::physics::cells::MAX_LEVEL) as usize + 1)..]
@@ -91,6 +113,7 @@ impl Annihilation {
                     coarsest_level: out.coarsest_level(),
                     threshold: LADDER[out.rung].1,
                     forced: LADDER[out.rung].1 > Z_STRUCTURE,
+                    moved: Moved::default(),
                 }
             }
             Resolution::Fixed => {
@@ -104,6 +127,7 @@ impl Annihilation {
                     total.after = r.after;
                     total.local_cells = r.local_cells;
                     total.words_sent += r.words_sent;
+                    total.messages_sent += r.messages_sent;
                     total.binning_s += r.binning_s;
                     total.reduction_s += r.reduction_s;
                     total.selection_s += r.selection_s;
@@ -119,6 +143,7 @@ impl Annihilation {
                     coarsest_level: level,
                     threshold: f64::NAN,
                     forced: level > 0,
+                    moved: Moved::default(),
                 }
             }
         }

@@ -9,8 +9,53 @@ pub trait Comm {
     fn sum_i64(&self, v: &mut [i64]);
     /// Global maximum.
     fn max_f64(&self, v: f64) -> f64;
+    /// Send `data` (any length) to rank `to` and receive, in the same call, what rank
+    /// `from` sends here; every rank calls it in the same round.
+    fn shift(&self, to: usize, from: usize, data: &[u64]) -> Vec<u64>;
+    /// What this rank has sent to other ranks by [`Comm::shift`] so far (collectives of a
+    /// few words, such as the global sums, are not counted).
+    fn sent(&self) -> Traffic;
+    /// Mean words per message below which [`Comm::exchange`] routes.
+    fn route_below_words(&self) -> i64 {
+        ROUTE_BELOW_WORDS
+    }
     /// Personalised all-to-all: `send[r]` goes to rank r; returns what each rank sent here.
-    fn exchange(&self, send: &[Vec<u64>]) -> Vec<Vec<u64>>;
+    /// Small messages are routed in ⌈log₂ P⌉ rounds of one message per rank ([`Router`]:
+    /// fewer messages, each word forwarded ≈ ½ log₂ P times); large ones go directly in
+    /// P − 1 rounds of the pairwise exchange (each word sent once). The choice is made from
+    /// the mean message, a global sum, so that every rank takes the same path
+    /// ([`Comm::route_below_words`]).
+    fn exchange(&self, send: &[Vec<u64>]) -> Vec<Vec<u64>> {
+        let (me, ranks) = (self.rank(), self.size());
+        if ranks == 1 {
+            return send.to_vec();
+        }
+        let mut total = [send
+            .iter()
+            .enumerate()
+            .filter(|&(r, _)| r != me)
+            .map(|(_, m)| m.len() as i64)
+            .sum::<i64>()];
+        self.sum_i64(&mut total);
+        let pairs = (ranks * (ranks - 1)) as i64;
+        if total[0] >= self.route_below_words().saturating_mul(pairs) {
+            let mut out = vec![Vec::new(); ranks];
+            out[me] = send[me].clone();
+            for step in 1..ranks {
+                let (to, from) = ((me + step) % ranks, (me + ranks - step) % ranks);
+                out[from] = self.shift(to, from, &send[to]);
+            }
+            return out;
+        }
+        let mut router = Router::new(me, ranks, send);
+        for round in 0..Router::rounds(self.size()) {
+            let (to, from) = router.partners(round);
+            let out = router.outgoing(round);
+            let got = self.shift(to, from, &out);
+            router.incoming(&got);
+        }
+        router.finish()
+    }
     /// Words of every rank, in rank order (for small data only).
     fn gather_all(&self, mine: &[u64]) -> Vec<Vec<u64>>;
 
@@ -50,6 +95,31 @@ pub trait Comm {
     }
 }
 
+/// What one rank sent to the other ranks: 64-bit words and point-to-point messages (a
+/// message to itself is not traffic).
+#[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
+pub struct Traffic {
+    pub words: u64,
+    pub messages: u64,
+}
+
+impl std::ops::Sub for Traffic {
+    type Output = Traffic;
+    fn sub(self, o: Traffic) -> Traffic {
+        Traffic {
+            words: self.words - o.words,
+            messages: self.messages - o.messages,
+        }
+    }
+}
+
+impl std::ops::AddAssign for Traffic {
+    fn add_assign(&mut self, o: Traffic) {
+        self.words += o.words;
+        self.messages += o.messages;
+    }
+}
+
 /// A single process without MPI (unit tests, serial tools).
 pub struct Solo;
 
@@ -67,103 +137,131 @@ impl Comm for Solo {
     fn max_f64(&self, v: f64) -> f64 {
         v
     }
-    fn exchange(&self, send: &[Vec<u64>]) -> Vec<Vec<u64>> {
-        send.to_vec()
+    fn shift(&self, _to: usize, _from: usize, data: &[u64]) -> Vec<u64> {
+        data.to_vec()
+    }
+    fn sent(&self) -> Traffic {
+        Traffic::default()
     }
     fn gather_all(&self, mine: &[u64]) -> Vec<Vec<u64>> {
         vec![mine.to_vec()]
     }
 }
 
-/// How a personalised all-to-all of 64-bit-length messages is split into rounds whose
-/// counts and displacements all fit MPI's 32-bit `int` (the one place the seam narrows).
-///
-/// Round r carries words [r·c, min((r + 1)·c, total)) of every message, c = `per_pair`
-/// words per rank pair. With P ranks and c ≤ i32::MAX / P every count of a round is ≤ c
-/// and every displacement (a sum of at most P − 1 counts) and the round's total are
-/// ≤ P·c ≤ i32::MAX, so no conversion to `int` can wrap.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub struct Rounds {
-    /// Largest number of words one rank sends one other rank in one round (≥ 1).
-    per_pair: u64,
+/// Mean words per message (per ordered pair of ranks) below which [`Comm::exchange`]
+/// routes: 4096 words = 32 KiB, about where sending a message costs as much in latency
+/// (a few µs) as in bandwidth (≈ 10 GB/s) on common cluster networks (an order of
+/// magnitude, not a measurement of this machine). Below it, fewer messages save more than
+/// the forwarded words cost; above it, every word is sent once.
+pub const ROUTE_BELOW_WORDS: i64 = 4096;
+
+/// A personalised all-to-all in ⌈log₂ P⌉ rounds of one message per rank (the index
+/// algorithm of Bruck, Ho, Kipnis, Upfal & Weathersby, IEEE TPDS 8, 1997). Every message
+/// travels as a packet (destination, source, length, words). In round i each rank sends to
+/// rank r + 2^i and receives from r − 2^i (mod P) the packets whose remaining distance
+/// (destination − r mod P) has bit i set; after the round that bit is clear, so after
+/// ⌈log₂ P⌉ rounds every packet is home. Messages per rank grow as log₂ P instead of P − 1;
+/// a packet is forwarded once per set bit of its distance (on average ≈ ½ log₂ P hops for
+/// destinations spread over all ranks).
+pub struct Router {
+    me: usize,
     ranks: usize,
+    /// Packets held for forwarding, back to back.
+    held: Vec<u64>,
+    /// Per source rank: its message to this rank.
+    arrived: Vec<Vec<u64>>,
 }
 
-/// The counts and displacements of one round, for one side (send or receive), in MPI's
-/// `int`, and where each rank's part of the round sits in its whole message.
-#[derive(Clone, Debug, PartialEq, Eq)]
-pub struct RoundLayout {
-    pub counts: Vec<i32>,
-    pub displs: Vec<i32>,
-    /// Per rank: the first word of its message this round carries.
-    pub from: Vec<u64>,
-}
+const HEADER: usize = 3;
 
-impl RoundLayout {
-    /// Words of the whole round on this side: Σ counts.
-    pub fn total(&self) -> usize {
-        self.counts.iter().map(|&c| c as usize).sum()
+impl Router {
+    /// Rounds for `ranks` ranks: ⌈log₂ ranks⌉.
+    pub fn rounds(ranks: usize) -> u32 {
+        ranks.max(1).next_power_of_two().trailing_zeros()
     }
-}
 
-impl Rounds {
-    /// Rounds for `ranks` ranks of at most `chunk_words` words per rank pair, lowered to
-    /// i32::MAX / ranks so that a whole round fits 32-bit displacements.
-    pub fn new(chunk_words: u64, ranks: usize) -> Self {
-        let cap = i32::MAX as u64 / ranks.max(1) as u64;
-        Rounds {
-            per_pair: chunk_words.min(cap).max(1),
-            ranks: ranks.max(1),
+    /// The router of rank `me` with its messages `send[d]` to each rank d.
+    pub fn new(me: usize, ranks: usize, send: &[Vec<u64>]) -> Router {
+        assert_eq!(send.len(), ranks, "one message per rank");
+        let mut arrived = vec![Vec::new(); ranks];
+        arrived[me] = send[me].clone();
+        let mut held = Vec::with_capacity(
+            send.iter()
+                .enumerate()
+                .filter(|&(d, m)| d != me && !m.is_empty())
+                .map(|(_, m)| m.len() + HEADER)
+                .sum(),
+        );
+        for (d, m) in send.iter().enumerate() {
+            if d != me && !m.is_empty() {
+                held.extend_from_slice(&[d as u64, me as u64, m.len() as u64]);
+                held.extend_from_slice(m);
+            }
+        }
+        Router {
+            me,
+            ranks,
+            held,
+            arrived,
         }
     }
 
-    /// Largest number of words one rank sends one other rank in one round.
-    pub fn per_pair(&self) -> u64 {
-        self.per_pair
+    /// (rank sent to, rank received from) in `round`.
+    pub fn partners(&self, round: u32) -> (usize, usize) {
+        let step = (1usize << round) % self.ranks;
+        (
+            (self.me + step) % self.ranks,
+            (self.me + self.ranks - step) % self.ranks,
+        )
     }
 
-    /// Rounds needed for messages of these lengths (the maximum over all of them; every
-    /// rank must take part in the global maximum of this).
-    pub fn needed(&self, lengths: &[u64]) -> u64 {
-        lengths
-            .iter()
-            .map(|&c| c.div_ceil(self.per_pair))
-            .max()
-            .unwrap_or(0)
-    }
-
-    /// The part (first word, length) of a message of `total` words carried by `round`.
-    pub fn part(&self, total: u64, round: u64) -> (u64, u64) {
-        let from = round.saturating_mul(self.per_pair).min(total);
-        (from, (total - from).min(self.per_pair))
-    }
-
-    /// Counts and displacements of `round` for messages of `lengths` words, one per rank
-    /// (as many as the ranks these rounds were made for).
-    pub fn layout(&self, lengths: &[u64], round: u64) -> RoundLayout {
-        debug_assert_eq!(lengths.len(), self.ranks);
-        let mut out = RoundLayout {
-            counts: Vec::with_capacity(lengths.len()),
-            displs: Vec::with_capacity(lengths.len()),
-            from: Vec::with_capacity(lengths.len()),
-        };
-        // Kept in u64 and narrowed per entry: each value is ≤ ranks · per_pair ≤ i32::MAX.
-        let mut at = 0u64;
-        for &len in lengths {
-            let (from, n) = self.part(len, round);
-            out.counts.push(narrow(n));
-            out.displs.push(narrow(at));
-            out.from.push(from);
-            at += n;
+    /// The packets that leave in `round` (removed from those held).
+    pub fn outgoing(&mut self, round: u32) -> Vec<u64> {
+        let mut stay = Vec::with_capacity(self.held.len());
+        let mut go = Vec::new();
+        let mut at = 0;
+        while at < self.held.len() {
+            let end = at + HEADER + self.held[at + 2] as usize;
+            let dest = self.held[at] as usize;
+            let distance = (dest + self.ranks - self.me) % self.ranks;
+            if distance >> round & 1 == 1 {
+                go.extend_from_slice(&self.held[at..end]);
+            } else {
+                stay.extend_from_slice(&self.held[at..end]);
+            }
+            at = end;
         }
-        out
+        self.held = stay;
+        go
+    }
+
+    /// Take the packets received in a round: this rank's are delivered, the others held.
+    pub fn incoming(&mut self, msg: &[u64]) {
+        let mut at = 0;
+        while at < msg.len() {
+            let (dest, src, len) = (msg[at] as usize, msg[at + 1] as usize, msg[at + 2] as usize);
+            let end = at + HEADER + len;
+            if dest == self.me {
+                self.arrived[src] = msg[at + HEADER..end].to_vec();
+            } else {
+                self.held.extend_from_slice(&msg[at..end]);
+            }
+            at = end;
+        }
+    }
+
+    /// What each rank sent here (after the last round).
+    pub fn finish(self) -> Vec<Vec<u64>> {
+        debug_assert!(self.held.is_empty(), "every packet is delivered");
+        self.arrived
     }
 }
 
-/// A count or displacement of one round as MPI's `int`; within range by construction
-/// ([`Rounds::new`] with one message per rank).
-fn narrow(v: u64) -> i32 {
-    i32::try_from(v).expect("a round's counts and displacements fit MPI's int")
+/// Pieces of at most `chunk` words that a message of `len` words is sent in, so that every
+/// count handed to MPI fits its 32-bit `int` (`chunk` ≤ i32::MAX).
+pub fn pieces(len: usize, chunk: usize) -> impl Iterator<Item = std::ops::Range<usize>> {
+    let chunk = chunk.clamp(1, i32::MAX as usize);
+    (0..len.div_ceil(chunk)).map(move |i| i * chunk..((i + 1) * chunk).min(len))
 }
 
 /// Make a local outcome collective: every rank fails when any rank failed (a failing rank
@@ -181,106 +279,64 @@ pub fn agree(comm: &dyn Comm, r: anyhow::Result<()>) -> anyhow::Result<()> {
 mod tests {
     use super::*;
 
-    /// Messages past 2^31 words (no data allocated, only their lengths): every round's
-    /// counts and displacements fit a 32-bit `int`, the round's total too, and the parts of
-    /// each message over all rounds tile it exactly, in order. Lengths are those of a
-    /// rebalance of ~3.6·10⁸ N = 2 samples to one peer (6 words each) and beyond.
+    /// The routed all-to-all over P in-process ranks (round by round, each rank's outgoing
+    /// packets handed to its partner): every message arrives whole at its destination,
+    /// from the right source, in ⌈log₂ P⌉ rounds, for P = 1…9 (powers of two and not).
     #[test]
-    fn rounds_split_messages_past_i32() {
-        let big = 6 * 360_000_000u64; // 2.16·10⁹ > 2^31 − 1
-        for (ranks, lengths) in [
-            (2, vec![0, big]),
-            (3, vec![big, 5, (1u64 << 33) + 7]),
-            (
-                4,
-                vec![i32::MAX as u64, i32::MAX as u64 + 1, 1, u32::MAX as u64 + 3],
-            ),
-        ] {
-            let plan = Rounds::new(i32::MAX as u64, ranks);
-            assert!(plan.per_pair() * ranks as u64 <= i32::MAX as u64);
-            let rounds = plan.needed(&lengths);
-            let longest = *lengths.iter().max().unwrap();
-            assert_eq!(rounds, longest.div_ceil(plan.per_pair()));
-            assert!(rounds > 1, "{lengths:?} must need several rounds");
-            let mut covered = vec![0u64; ranks];
+    fn router_delivers_every_message() {
+        for ranks in 1..=9usize {
+            // send[s][d]: message from rank s to rank d, of assorted lengths (0 to 40).
+            let send: Vec<Vec<Vec<u64>>> = (0..ranks)
+                .map(|s| {
+                    (0..ranks)
+                        .map(|d| {
+                            (0..(13 * s + 7 * d) as u64 % 41)
+                                .map(|w| (s * 1000 + d * 100) as u64 + w)
+                                .collect()
+                        })
+                        .collect()
+                })
+                .collect();
+            let mut routers: Vec<Router> = (0..ranks)
+                .map(|r| Router::new(r, ranks, &send[r]))
+                .collect();
+            let rounds = Router::rounds(ranks);
+            assert_eq!(rounds, (ranks as f64).log2().ceil() as u32);
             for round in 0..rounds {
-                let l = plan.layout(&lengths, round);
-                let mut at = 0u64;
-                for r in 0..ranks {
-                    assert!(l.counts[r] >= 0 && l.displs[r] >= 0);
-                    assert_eq!(l.displs[r] as u64, at, "displacements are running sums");
-                    assert_eq!(l.from[r], covered[r], "parts follow each other");
-                    covered[r] += l.counts[r] as u64;
-                    at += l.counts[r] as u64;
+                let out: Vec<(usize, Vec<u64>)> = routers
+                    .iter_mut()
+                    .map(|r| (r.partners(round).0, r.outgoing(round)))
+                    .collect();
+                for (from, (to, msg)) in out.into_iter().enumerate() {
+                    assert_eq!(routers[to].partners(round).1, from, "partners agree");
+                    routers[to].incoming(&msg);
                 }
-                assert!(at <= i32::MAX as u64);
-                assert_eq!(l.total() as u64, at);
             }
-            assert_eq!(covered, lengths, "every word of every message is sent once");
-            // One round past the last carries nothing.
-            assert_eq!(plan.layout(&lengths, rounds).total(), 0);
+            for (d, r) in routers.into_iter().enumerate() {
+                let got = r.finish();
+                for s in 0..ranks {
+                    assert_eq!(got[s], send[s][d], "P = {ranks}: {s} → {d}");
+                }
+            }
         }
     }
 
-    /// A mock of the MPI all-to-all over P in-process ranks, driven through the rounds of
-    /// [`Rounds`] with a small chunk: the reassembled messages equal the ones sent.
+    /// Pieces tile a message in order, none longer than the chunk or MPI's `int`.
     #[test]
-    fn rounds_reassemble_messages() {
-        let ranks = 3;
-        // send[s][d]: message from rank s to rank d, of assorted lengths (0 to 40).
-        let send: Vec<Vec<Vec<u64>>> = (0..ranks)
-            .map(|s| {
-                (0..ranks)
-                    .map(|d| {
-                        (0..(13 * s + 7 * d) as u64 % 41)
-                            .map(|w| (s * 1000 + d * 100) as u64 + w)
-                            .collect()
-                    })
-                    .collect()
-            })
-            .collect();
-        let plan = Rounds::new(4, ranks);
-        let lengths = |s: usize| -> Vec<u64> { send[s].iter().map(|m| m.len() as u64).collect() };
-        let recv_lengths =
-            |d: usize| -> Vec<u64> { (0..ranks).map(|s| send[s][d].len() as u64).collect() };
-        let rounds = (0..ranks)
-            .map(|r| plan.needed(&lengths(r)).max(plan.needed(&recv_lengths(r))))
-            .max()
-            .unwrap();
-        let mut out = vec![vec![Vec::new(); ranks]; ranks];
-        for round in 0..rounds {
-            // Each rank's flat send buffer of this round.
-            let flats: Vec<(Vec<u64>, RoundLayout)> = (0..ranks)
-                .map(|s| {
-                    let l = plan.layout(&lengths(s), round);
-                    let mut flat = Vec::new();
-                    for d in 0..ranks {
-                        let from = l.from[d] as usize;
-                        flat.extend_from_slice(&send[s][d][from..from + l.counts[d] as usize]);
-                    }
-                    (flat, l)
-                })
-                .collect();
-            for d in 0..ranks {
-                let rl = plan.layout(&recv_lengths(d), round);
-                let mut recv = vec![0u64; rl.total()];
-                for s in 0..ranks {
-                    let (flat, sl) = &flats[s];
-                    assert_eq!(sl.counts[d], rl.counts[s], "both sides agree on the count");
-                    let src = &flat[sl.displs[d] as usize..][..sl.counts[d] as usize];
-                    recv[rl.displs[s] as usize..][..rl.counts[s] as usize].copy_from_slice(src);
-                }
-                for s in 0..ranks {
-                    let from = rl.displs[s] as usize;
-                    out[d][s].extend_from_slice(&recv[from..from + rl.counts[s] as usize]);
-                }
+    fn pieces_tile_messages() {
+        for (len, chunk) in [(0, 5), (1, 5), (10, 5), (11, 5), (7, 1), (3, 0)] {
+            let p: Vec<_> = pieces(len, chunk).collect();
+            let mut at = 0;
+            for r in &p {
+                assert_eq!(r.start, at);
+                assert!(r.end > r.start && r.len() <= chunk.max(1));
+                at = r.end;
             }
+            assert_eq!(at, len);
         }
-        for s in 0..ranks {
-            for d in 0..ranks {
-                assert_eq!(out[d][s], send[s][d]);
-            }
-        }
+        let big = 6 * 360_000_000usize; // past 2^31 − 1 words
+        assert!(pieces(big, usize::MAX).all(|r| r.len() <= i32::MAX as usize));
+        assert_eq!(pieces(big, usize::MAX).count(), 2);
     }
 
     #[test]

@@ -160,7 +160,7 @@ pub fn table_bytes(t: &KernelTable) -> f64 {
 /// Bytes one more live particle adds to a rank at the peak: its place in the store and in
 /// the annihilation buffers (a candidate at most), its share of the occupied cells
 /// (`cells_per_particle`, with two hash slots each), and on several ranks its cells'
-/// exchange and its packed copy while rebalancing.
+/// exchange and its packed copies while it is placed in its home cell.
 pub fn bytes_per_live_particle(
     setup: &Setup,
     cells_per_particle: f64,
@@ -183,8 +183,8 @@ pub fn bytes_per_live_particle(
     }
     if ranks > 1 {
         b += cells_per_particle * (a.per_cell_owner + exchange_bytes_per_cell() + 2.0 * a.per_slot)
-            + sp
-            + packed_bytes_per_particle(setup.n);
+            + 2.0 * packed_bytes_per_particle(setup.n)
+            + 1.0;
     }
     b
 }
@@ -313,20 +313,20 @@ impl Forecast {
             let pk = packed_bytes_per_particle(n);
             let exchange =
                 cells * (a.per_cell_owner + exchange_bytes_per_cell()) + owner_slots * a.per_slot;
-            // Rebalancing copies this rank's survivors into a new store through their
-            // packed form while the old store still holds its pages.
-            let rebalance = load.after * (sp + pk);
+            // Placing the particles in their home cells before the pass (engine::home):
+            // at most every particle packed to be sent and as many received, with a keep
+            // flag each.
+            let placing = p * (2.0 * pk + 1.0);
             terms.push(Term {
                 name: "MPI exchange",
                 what: format!(
-                    "{:.3e} cells × {} B + {owner_slots:.3e} owner slots × {} B; rebalancing {:.3e} samples × {} B",
+                    "{:.3e} cells × {} B + {owner_slots:.3e} owner slots × {} B; placing {p:.3e} samples × {} B",
                     cells,
                     a.per_cell_owner + exchange_bytes_per_cell(),
                     a.per_slot,
-                    load.after,
-                    sp + pk
+                    2.0 * pk + 1.0
                 ),
-                bytes: exchange + rebalance,
+                bytes: exchange + placing,
             });
         }
         let tables: Vec<&KernelTable> = [&setup.table1, &setup.table2]

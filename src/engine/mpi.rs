@@ -1,22 +1,31 @@
 //! The MPI implementation of [`Comm`] (rsmpi), and the node-local view used to share a
 //! node's cores among its ranks.
 
-use crate::engine::comm::{Comm, Rounds};
+use crate::engine::comm::{Comm, Traffic, pieces};
 use mpi::collective::SystemOperation;
-use mpi::datatype::{Partition, PartitionMut};
 use mpi::topology::{Communicator, SimpleCommunicator};
 use mpi::traits::*;
+use std::cell::Cell;
 
-/// Environment variable that lowers the words one rank sends another in one round of
-/// [`Comm::exchange`] (default: as many as MPI's 32-bit counts allow). For tests of the
-/// chunked path; read once, when the communicator is made.
+/// Environment variable that lowers the words of one MPI message (a message of
+/// [`Comm::shift`] longer than that goes in several; default: as many as MPI's 32-bit
+/// counts allow). For tests of the chunked path; read once, when the communicator is made.
 pub const CHUNK_ENV: &str = "SIGNFOLD_EXCHANGE_CHUNK_WORDS";
+
+/// Environment variable that sets the mean message (words) below which exchanges are
+/// routed (default [`crate::engine::comm::ROUTE_BELOW_WORDS`]; 0: never, a huge value:
+/// always). For scaling studies of both paths; read once, when the communicator is made.
+pub const ROUTE_ENV: &str = "SIGNFOLD_ROUTE_BELOW_WORDS";
 
 /// MPI_COMM_WORLD.
 pub struct World {
     world: SimpleCommunicator,
-    /// Largest number of words one rank sends one other rank in one all-to-all round.
+    /// Largest number of words of one MPI message.
     chunk_words: usize,
+    /// What this rank sent to others so far.
+    sent: Cell<Traffic>,
+    /// Mean message (words) below which exchanges are routed.
+    route_below: i64,
 }
 
 impl World {
@@ -31,11 +40,17 @@ impl World {
         World::with_chunk(world, chunk)
     }
 
-    /// The world communicator with at most `chunk_words` words per rank pair and round.
+    /// The world communicator with at most `chunk_words` words per MPI message.
     pub fn with_chunk(world: SimpleCommunicator, chunk_words: usize) -> Self {
         World {
             world,
-            chunk_words: chunk_words.max(1),
+            chunk_words: chunk_words.clamp(1, i32::MAX as usize),
+            sent: Cell::new(Traffic::default()),
+            route_below: std::env::var(ROUTE_ENV)
+                .ok()
+                .and_then(|v| v.trim().parse::<i64>().ok())
+                .filter(|&w| w >= 0)
+                .unwrap_or(crate::engine::comm::ROUTE_BELOW_WORDS),
         }
     }
 
@@ -75,46 +90,41 @@ impl Comm for World {
             .all_reduce_into(&v, &mut out, SystemOperation::max());
         out
     }
-    /// Messages of any length (64-bit counts): sent in the rounds of [`Rounds`] (at most
-    /// `chunk_words` words per rank pair and i32::MAX / P), so that every count and
-    /// displacement of a round fits MPI's 32-bit `int`. Every rank takes part in the same
-    /// number of rounds.
-    fn exchange(&self, send: &[Vec<u64>]) -> Vec<Vec<u64>> {
-        let p = self.size();
-        assert_eq!(send.len(), p);
-        let send_counts: Vec<u64> = send.iter().map(|v| v.len() as u64).collect();
-        let mut recv_counts = vec![0u64; p];
-        self.world
-            .all_to_all_into(&send_counts[..], &mut recv_counts[..]);
-        let plan = Rounds::new(self.chunk_words as u64, p);
-        let mine = plan.needed(&send_counts).max(plan.needed(&recv_counts));
-        let mut rounds = mine;
-        self.world
-            .all_reduce_into(&mine, &mut rounds, SystemOperation::max());
-        let mut out: Vec<Vec<u64>> = recv_counts
-            .iter()
-            .map(|&c| Vec::with_capacity(c as usize))
-            .collect();
-        for round in 0..rounds {
-            let sl = plan.layout(&send_counts, round);
-            let rl = plan.layout(&recv_counts, round);
-            let mut flat: Vec<u64> = Vec::with_capacity(sl.total());
-            for (r, v) in send.iter().enumerate() {
-                let from = sl.from[r] as usize;
-                flat.extend_from_slice(&v[from..from + sl.counts[r] as usize]);
+    /// A message of any length (64-bit counts): its length first, then the words in
+    /// pieces of at most `chunk_words` (non-blocking sends, blocking receives; messages
+    /// between two ranks do not overtake each other, so the pieces arrive in order).
+    fn shift(&self, to: usize, from: usize, data: &[u64]) -> Vec<u64> {
+        let dest = self.world.process_at_rank(to as i32);
+        let src = self.world.process_at_rank(from as i32);
+        let (len, _) =
+            mpi::point_to_point::send_receive::<u64, _, _, _>(&(data.len() as u64), &dest, &src);
+        let mut out = vec![0u64; len as usize];
+        mpi::request::scope(|scope| {
+            let sends: Vec<_> = pieces(data.len(), self.chunk_words)
+                .map(|r| dest.immediate_send(scope, &data[r]))
+                .collect();
+            for r in pieces(out.len(), self.chunk_words) {
+                src.receive_into(&mut out[r]);
             }
-            let mut recv = vec![0u64; rl.total()];
-            {
-                let sp = Partition::new(&flat[..], &sl.counts[..], &sl.displs[..]);
-                let mut rp = PartitionMut::new(&mut recv[..], &rl.counts[..], &rl.displs[..]);
-                self.world.all_to_all_varcount_into(&sp, &mut rp);
+            for s in sends {
+                s.wait();
             }
-            for (r, o) in out.iter_mut().enumerate() {
-                let from = rl.displs[r] as usize;
-                o.extend_from_slice(&recv[from..from + rl.counts[r] as usize]);
-            }
+        });
+        if to != self.rank() {
+            let mut t = self.sent.get();
+            t += Traffic {
+                words: data.len() as u64 + 1,
+                messages: 1,
+            };
+            self.sent.set(t);
         }
         out
+    }
+    fn sent(&self) -> Traffic {
+        self.sent.get()
+    }
+    fn route_below_words(&self) -> i64 {
+        self.route_below
     }
     fn gather_all(&self, mine: &[u64]) -> Vec<Vec<u64>> {
         let p = self.size();

@@ -24,7 +24,7 @@ pub struct Owners {
 
 impl Owners {
     /// Send (key, +, −) of local cell c (`keys[c]`, `plus[c]`, `minus[c]`) to rank
-    /// `owner(keys[c])` and sum what this rank receives. Returns the 64-bit words sent.
+    /// `owner(keys[c])` and sum what this rank receives.
     pub fn exchange(
         &mut self,
         comm: &dyn Comm,
@@ -32,7 +32,7 @@ impl Owners {
         plus: &[u64],
         minus: &[u64],
         owner: impl Fn(u128) -> usize,
-    ) -> u64 {
+    ) {
         let ranks = comm.size();
         let mut send = vec![Vec::new(); ranks];
         self.sent.resize(ranks, Vec::new());
@@ -44,7 +44,6 @@ impl Owners {
             send[o].extend_from_slice(&[key as u64, (key >> 64) as u64, plus[c], minus[c]]);
             self.sent[o].push(c);
         }
-        let words = send.iter().map(|v| v.len() as u64).sum::<u64>();
         let recv = comm.exchange(&send);
         let total: usize = recv.iter().map(|m| m.len() / 4).sum();
         self.table.clear(2 * total);
@@ -68,6 +67,5 @@ impl Owners {
                 self.entries[r].push(g);
             }
         }
-        words
     }
 }

@@ -27,11 +27,11 @@
 //! in fixed point), so the leaves are the same on any number of ranks and threads.
 
 use crate::engine::cell_table::CellTable;
-use crate::engine::comm::Comm;
+use crate::engine::comm::{Comm, Traffic};
+use crate::engine::home;
 use crate::engine::owners::Owners;
 use crate::physics::cells::{CellMesh, MAX_LEVEL};
 use crate::physics::particles::Store;
-use crate::physics::rng;
 
 /// Merges at z ≤ Z_STRUCTURE keep the structure the samples resolve (a two-sided 5 %
 /// test would be 1.96); thresholds above it are forced by the budget and reported.
@@ -75,8 +75,8 @@ pub struct Outcome {
     pub after: u64,
     /// Samples in leaves holding both signs, by the leaf's level 0..=MAX_LEVEL.
     pub mixed_by_level: [u64; LEVELS],
-    /// 64-bit words this rank sent and its wall seconds.
-    pub words_sent: u64,
+    /// What this rank sent to others, and its wall seconds.
+    pub traffic: Traffic,
     pub seconds: f64,
 }
 
@@ -238,10 +238,6 @@ impl Tree {
     }
 }
 
-fn owner(root: u128, ranks: usize) -> usize {
-    (rng::hash(&[root as u64, (root >> 64) as u64]) % ranks as u64) as usize
-}
-
 /// Buffers of the adaptive resolution, kept from one annihilation to the next.
 #[derive(Default)]
 pub struct Resolution {
@@ -260,7 +256,9 @@ pub struct Resolution {
 
 impl Resolution {
     /// Choose the leaves for `store` so that annihilation leaves at most `target` samples
-    /// if any rung allows it (else the last rung), and fill [`Resolution::leaves`].
+    /// if any rung allows it (else the last rung), and fill [`Resolution::leaves`]. On
+    /// several ranks the particles must sit in their home cells ([`home::migrate`]), so that
+    /// each finest cell is whole on one rank.
     pub fn resolve(
         &mut self,
         mesh: &CellMesh,
@@ -281,27 +279,16 @@ impl Resolution {
             |p| mesh.key(store.xs(p), store.ks(p), store.id[p]),
         );
         let cells = self.fine.len();
-        // 2. Global counts at the owners of the roots (the coarsest cells), the tree there.
-        let mut words = 0u64;
+        // 2. The first rung (no merging) needs no tree: when annihilation at the finest cells
+        //    already leaves at most the target (a global sum of |P − Q| over the cells),
+        //    every leaf is a finest cell — the tree's own answer. The particles sit in their
+        //    home cells (`engine::home`), which contain their finest cells, so each finest
+        //    cell is whole on one rank and its local counts are its global counts.
+        let sent_before = comm.sent();
         let levels: Vec<u8>;
         let mut counts = [0i64; RUNGS * (1 + LEVELS)];
-        if ranks > 1 {
-            words += self
-                .owners
-                .exchange(comm, &self.fine.keys, &self.plus, &self.minus, |key| {
-                    owner(mesh.lift(key, MAX_LEVEL), ranks)
-                });
-        }
-        // The first rung (no merging) needs no tree: when annihilation at the finest cells
-        // already leaves at most the target (a global sum of |P − Q| over the cells, each
-        // counted at its owner), every leaf is a finest cell — the tree's own answer.
-        let (plus, minus) = if ranks == 1 {
-            (&self.plus[..], &self.minus[..])
-        } else {
-            (&self.owners.plus[..], &self.owners.minus[..])
-        };
         let mut finest = [0i64; 2];
-        for (&p, &m) in plus.iter().zip(minus) {
+        for (&p, &m) in self.plus.iter().zip(&self.minus) {
             finest[0] += p.abs_diff(m) as i64;
             if p > 0 && m > 0 {
                 finest[1] += (p + m) as i64;
@@ -321,6 +308,11 @@ impl Resolution {
             let rung = choose(&counts, target);
             levels = self.tree.leaf[0].iter().map(|l| l[rung]).collect();
         } else {
+            // 3. Global counts at the owners of the roots (the coarsest cells), the tree there.
+            self.owners
+                .exchange(comm, &self.fine.keys, &self.plus, &self.minus, |key| {
+                    home::cell_owner(mesh, mesh.lift(key, MAX_LEVEL), ranks)
+                });
             let own = &self.owners;
             let (after, by_level) = self
                 .tree
@@ -338,7 +330,6 @@ impl Resolution {
                         .collect()
                 })
                 .collect();
-            words += reply.iter().map(|v| v.len() as u64).sum::<u64>();
             let answers = comm.exchange(&reply);
             let mut lv = vec![0u8; cells];
             for (o, sent) in own.sent.iter().enumerate() {
@@ -349,7 +340,7 @@ impl Resolution {
             levels = lv;
         }
         let rung = choose(&counts, target);
-        // 3. Each local finest cell's leaf key (the particles keep their finest cell).
+        // 4. Each local finest cell's leaf key (the particles keep their finest cell).
         self.leaf_key.clear();
         self.leaf_key
             .extend((0..cells).map(|c| mesh.lift(self.fine.keys[c], u32::from(levels[c]))));
@@ -361,15 +352,16 @@ impl Resolution {
             rung,
             after: counts[rung] as u64,
             mixed_by_level,
-            words_sent: words,
+            traffic: comm.sent() - sent_before,
             seconds: t0.elapsed().as_secs_f64(),
         }
     }
 
     /// The leaves as the annihilator bins them: per local finest cell its leaf's key, per
     /// particle in store order its finest cell (after [`Resolution::resolve`]).
-    pub fn leaves(&self) -> crate::engine::annihilate::Cells<'_> {
+    pub fn leaves<'a>(&'a self, mesh: &'a CellMesh) -> crate::engine::annihilate::Cells<'a> {
         crate::engine::annihilate::Cells::Leaves {
+            mesh,
             leaf_key: &self.leaf_key,
             cell_of: &self.cell_of,
         }

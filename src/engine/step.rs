@@ -1,9 +1,8 @@
 //! One synchronisation step of a run (docs/method.md §2.4, §3): advance every particle,
-//! sum the global counts, and annihilate within the budget when the trigger says so, then
-//! rebalance. The run's driver and the `check` pilot both call [`sync_step`], so the pilot
+//! sum the global counts, and, when the trigger says so, place the particles in their home
+//! cells and annihilate within the budget. The run's driver and the `check` pilot both call [`sync_step`], so the pilot
 //! forecasts exactly what a run does.
 
-use crate::engine::annihilate;
 use crate::engine::budget::{Annihilation, Pass};
 use crate::engine::comm::Comm;
 use crate::engine::state::State;
@@ -28,12 +27,10 @@ pub struct StepOutcome {
     pub annihilation: Option<Annihilated>,
 }
 
-/// An annihilation within the budget and the rebalancing after it.
+/// An annihilation within the budget (with the placement of the particles before it).
 #[derive(Clone, Debug)]
 pub struct Annihilated {
     pub pass: Pass,
-    /// 64-bit words this rank sent while rebalancing.
-    pub moved_words: u64,
 }
 
 /// Whether a global count triggers annihilation: it has grown by `annihilation.trigger`
@@ -99,12 +96,7 @@ pub fn sync_step(
         (t0.elapsed().as_secs_f64() - report.binning_s - report.reduction_s - report.selection_s)
             .max(0.0),
     );
-    let t0 = Instant::now();
-    let moved_words = annihilate::rebalance(&mut st.store, comm);
-    timers.add_secs(
-        Phase::Selection,
-        report.selection_s + t0.elapsed().as_secs_f64(),
-    );
+    timers.add_secs(Phase::Selection, report.selection_s);
     st.annihilations += 1;
     st.count_after_annihilation = report.after;
     StepOutcome {
@@ -113,6 +105,6 @@ pub fn sync_step(
         local_start,
         local_advanced,
         count: report.after,
-        annihilation: Some(Annihilated { pass, moved_words }),
+        annihilation: Some(Annihilated { pass }),
     }
 }

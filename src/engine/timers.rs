@@ -10,7 +10,7 @@ pub enum Phase {
     Advance,
     Binning,
     Reduction,
-    /// Selecting the surviving samples of each mixed cell and rebalancing them over ranks.
+    /// Selecting the surviving samples of each mixed cell.
     Selection,
     Observe,
     Output,

@@ -163,6 +163,7 @@ pub const RUN_SECONDS_PREFIX: &str = "seconds_";
 pub const RUN_WALL_SECONDS: Dataset = ds("wall_seconds", "s");
 pub const RUN_BYTES_SENT: Dataset = ds("bytes_sent", "B");
 pub const RUN_OCCUPIED_CELLS: Dataset = ds("occupied_cells", "1");
+pub const RUN_MESSAGES_SENT: Dataset = ds("messages_sent", "1");
 pub const RUN_RANKS: Dataset = ds("ranks", "1");
 pub const RUN_THREADS: Dataset = ds("threads", "1");
 /// Reference-solver figures under `/run`.
@@ -183,7 +184,10 @@ pub const RUN_SINGLE: Dataset = ds("single", "1");
 pub fn run_axis(name: &str, len: usize) -> Option<Dataset> {
     if name.starts_with(RUN_SECONDS_PREFIX) || name == RUN_WALL_SECONDS.name {
         Some(RUN_RANK)
-    } else if name == RUN_BYTES_SENT.name || name == RUN_OCCUPIED_CELLS.name {
+    } else if name == RUN_BYTES_SENT.name
+        || name == RUN_OCCUPIED_CELLS.name
+        || name == RUN_MESSAGES_SENT.name
+    {
         Some(RUN_PASS_RANK)
     } else if len == 1 {
         Some(RUN_SINGLE)

@@ -302,6 +302,7 @@ fn drive(
     let mut last_print = Instant::now();
     let mut events = 0u64;
     let mut bytes_sent: Vec<f64> = Vec::new();
+    let mut messages_sent: Vec<f64> = Vec::new();
     let mut cells: Vec<f64> = Vec::new();
     // Occupied annihilation cells per particle of this rank at the latest annihilation
     // (one per particle, the most there can be, before the first).
@@ -312,11 +313,7 @@ fn drive(
         events += step.events;
         let count = step.count;
         let t0 = Instant::now();
-        if let Some(Annihilated {
-            pass,
-            moved_words: moved,
-        }) = &step.annihilation
-        {
+        if let Some(Annihilated { pass }) = &step.annihilation {
             let rep = pass.report;
             let worse = if pass.threshold.is_nan() {
                 pass.coarsest_level > forced_level
@@ -348,7 +345,8 @@ fn drive(
                     progress(Progress::Warning(w));
                 }
             }
-            bytes_sent.push(8.0 * (rep.words_sent + *moved) as f64);
+            bytes_sent.push(8.0 * (rep.words_sent + pass.moved.words) as f64);
+            messages_sent.push((rep.messages_sent + pass.moved.messages) as f64);
             cells.push(rep.local_cells as f64);
             if root {
                 let rec = &mut out.records;
@@ -415,7 +413,12 @@ fn drive(
         if is_output {
             observe(&st, &mut out, &mut timers);
             let t0 = Instant::now();
-            record_run(&mut out, &timers, started, &bytes_sent, &cells, comm);
+            let passes = [
+                (names::RUN_BYTES_SENT, &bytes_sent[..]),
+                (names::RUN_MESSAGES_SENT, &messages_sent[..]),
+                (names::RUN_OCCUPIED_CELLS, &cells[..]),
+            ];
+            record_run(&mut out, &timers, started, &passes, comm);
             let written = if root {
                 out.write_atomic(&obs_path)
             } else {

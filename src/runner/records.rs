@@ -3,23 +3,25 @@
 
 use crate::engine::comm::Comm;
 use crate::engine::timers::{Phase, Timers};
+use crate::io::names::Dataset;
 use crate::io::results::ResultFile;
 use std::time::Instant;
 
 /// Per-rank figures gathered to rank 0 into `/run`: wall seconds per phase, total wall
-/// seconds, bytes sent and occupied cells per annihilation (annihilation-major, ranks inner).
+/// seconds, and per annihilation the series of `passes` (each of the same length: bytes and
+/// messages sent, occupied cells; annihilation-major, ranks inner).
 pub fn record_run(
     out: &mut ResultFile,
     timers: &Timers,
     started: Instant,
-    bytes: &[f64],
-    cells: &[f64],
+    passes: &[(Dataset, &[f64])],
     comm: &dyn Comm,
 ) {
     let mut mine: Vec<u64> = timers.secs.iter().map(|v| v.to_bits()).collect();
     mine.push(started.elapsed().as_secs_f64().to_bits());
-    mine.extend(bytes.iter().map(|v| v.to_bits()));
-    mine.extend(cells.iter().map(|v| v.to_bits()));
+    for (_, series) in passes {
+        mine.extend(series.iter().map(|v| v.to_bits()));
+    }
     let all = comm.gather_all(&mine);
     if !comm.is_root() {
         return;
@@ -38,27 +40,21 @@ pub fn record_run(
         "wall_seconds".into(),
         ("s".into(), (0..ranks).map(|r| f(r, np)).collect()),
     );
-    let na = bytes.len();
-    out.run.insert(
-        "bytes_sent".into(),
-        (
-            "B".into(),
-            (0..na)
-                .flat_map(|a| (0..ranks).map(move |r| (a, r)))
-                .map(|(a, r)| f(r, np + 1 + a))
-                .collect(),
-        ),
-    );
-    out.run.insert(
-        "occupied_cells".into(),
-        (
-            "1".into(),
-            (0..na)
-                .flat_map(|a| (0..ranks).map(move |r| (a, r)))
-                .map(|(a, r)| f(r, np + 1 + na + a))
-                .collect(),
-        ),
-    );
+    let mut at = np + 1;
+    for (d, series) in passes {
+        let na = series.len();
+        out.run.insert(
+            d.name.into(),
+            (
+                d.units.into(),
+                (0..na)
+                    .flat_map(|a| (0..ranks).map(move |r| (a, r)))
+                    .map(|(a, r)| f(r, at + a))
+                    .collect(),
+            ),
+        );
+        at += na;
+    }
     out.run
         .insert("ranks".into(), ("1".into(), vec![ranks as f64]));
     out.run.insert(

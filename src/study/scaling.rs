@@ -127,6 +127,8 @@ pub struct Row {
     pub imbalance_advance: f64,
     /// Mean over ranks and annihilations of the bytes one rank sent in one annihilation.
     pub bytes_sent_per_rank: f64,
+    /// Mean over ranks and annihilations of the messages one rank sent to other ranks.
+    pub messages_per_rank: f64,
     /// Mean over ranks and annihilations of the occupied cells on one rank.
     pub occupied_cells_per_rank: f64,
     pub efficiency: f64,
@@ -154,6 +156,7 @@ pub fn header() -> Vec<String> {
         [
             "imbalance_advance",
             "bytes_sent_per_rank",
+            "messages_per_rank",
             "occupied_cells_per_rank",
             "efficiency",
         ]
@@ -180,6 +183,7 @@ impl Row {
         f.extend([
             format!("{:.4}", self.imbalance_advance),
             format!("{:.1}", self.bytes_sent_per_rank),
+            format!("{:.2}", self.messages_per_rank),
             format!("{:.1}", self.occupied_cells_per_rank),
             format!("{:.4}", self.efficiency),
         ]);
@@ -259,6 +263,7 @@ pub fn row_from(file: &ResultFile, mode: &str, launch_s: f64) -> Result<Row> {
         phase_s,
         imbalance_advance,
         bytes_sent_per_rank: mean(bytes),
+        messages_per_rank: mean(get("messages_sent")?),
         occupied_cells_per_rank: mean(cells),
         efficiency: 0.0,
     })
@@ -651,6 +656,7 @@ mod tests {
             phase_s: vec![0.0; PHASES.len()],
             imbalance_advance: 1.0,
             bytes_sent_per_rank: 0.0,
+            messages_per_rank: 0.0,
             occupied_cells_per_rank: 0.0,
             efficiency: 0.0,
         }
