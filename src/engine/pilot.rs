@@ -11,7 +11,7 @@ use crate::engine::budget::Annihilation;
 use crate::engine::comm::Comm;
 use crate::engine::memory::{Forecast, Load};
 use crate::engine::start::initial_state;
-use crate::engine::step::sync_step;
+use crate::engine::step::{StepBuffers, sync_step};
 use crate::engine::timers::Timers;
 use crate::physics::cells::CellMesh;
 use crate::physics::cells::MAX_LEVEL;
@@ -191,14 +191,14 @@ pub fn pilot(setup: &mut Setup, comm: &dyn Comm) -> Result<Pilot> {
 
 fn measure(setup: &mut Setup, comm: &dyn Comm) -> Result<Pilot> {
     let (mut st, _) = initial_state(setup, comm)?;
-    let mut annihilation = Annihilation::new(setup)?;
+    let mut buffers = StepBuffers::new(setup)?;
     let mut timers = Timers::default();
     let initial = st.initial_count;
     let steps = setup.steps.min(PILOT_STEPS);
     let (mut log_growth, mut growth_max) = (0.0, 1.0f64);
     let mut count = initial;
     for _ in 0..steps {
-        let out = sync_step(setup, &mut annihilation, &mut st, comm, &mut timers);
+        let out = sync_step(setup, &mut buffers, &mut st, comm, &mut timers);
         let g = out.advanced as f64 / count.max(1) as f64;
         log_growth += g.max(1e-300).ln();
         growth_max = growth_max.max(g);

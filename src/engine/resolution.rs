@@ -250,7 +250,8 @@ pub struct Resolution {
     /// The count exchange with the owners of the roots (several ranks).
     owners: Owners,
     tree: Tree,
-    /// Per local finest cell: its leaf's key.
+    /// Per local finest cell: its leaf's level and key.
+    levels: Vec<u8>,
     leaf_key: Vec<u128>,
 }
 
@@ -285,7 +286,8 @@ impl Resolution {
         //    home cells (`engine::home`), which contain their finest cells, so each finest
         //    cell is whole on one rank and its local counts are its global counts.
         let sent_before = comm.sent();
-        let levels: Vec<u8>;
+        let levels = &mut self.levels;
+        levels.clear();
         let mut counts = [0i64; RUNGS * (1 + LEVELS)];
         let mut finest = [0i64; 2];
         for (&p, &m) in self.plus.iter().zip(&self.minus) {
@@ -298,7 +300,7 @@ impl Resolution {
         if finest[0] as u64 <= target {
             counts[0] = finest[0];
             counts[RUNGS] = finest[1];
-            levels = vec![0u8; cells];
+            levels.resize(cells, 0);
         } else if ranks == 1 {
             let (after, by_level) = self
                 .tree
@@ -306,7 +308,7 @@ impl Resolution {
             fill(&mut counts, &after, &by_level);
             comm.sum_i64(&mut counts);
             let rung = choose(&counts, target);
-            levels = self.tree.leaf[0].iter().map(|l| l[rung]).collect();
+            levels.extend(self.tree.leaf[0].iter().map(|l| l[rung]));
         } else {
             // 3. Global counts at the owners of the roots (the coarsest cells), the tree there.
             self.owners
@@ -331,13 +333,12 @@ impl Resolution {
                 })
                 .collect();
             let answers = comm.exchange(&reply);
-            let mut lv = vec![0u8; cells];
+            levels.resize(cells, 0);
             for (o, sent) in own.sent.iter().enumerate() {
                 for (j, &c) in sent.iter().enumerate() {
-                    lv[c] = answers[o][j] as u8;
+                    levels[c] = answers[o][j] as u8;
                 }
             }
-            levels = lv;
         }
         let rung = choose(&counts, target);
         // 4. Each local finest cell's leaf key (the particles keep their finest cell).

@@ -7,9 +7,28 @@ use crate::engine::budget::{Annihilation, Pass};
 use crate::engine::comm::Comm;
 use crate::engine::state::State;
 use crate::engine::timers::{Phase, Timers};
-use crate::physics::flight;
+use crate::physics::flight::Advancer;
 use crate::physics::numerics::Setup;
+use anyhow::Result;
 use std::time::Instant;
+
+/// The buffers of a run's steps (advance, annihilation, the global sums), kept from one
+/// step to the next so that a step allocates only while the counts still grow.
+pub struct StepBuffers {
+    pub annihilation: Annihilation,
+    pub advancer: Advancer,
+    sums: Vec<i64>,
+}
+
+impl StepBuffers {
+    pub fn new(setup: &Setup) -> Result<Self> {
+        Ok(StepBuffers {
+            annihilation: Annihilation::new(setup)?,
+            advancer: Advancer::default(),
+            sums: Vec::new(),
+        })
+    }
+}
 
 /// What one step did, in global numbers.
 #[derive(Clone, Debug)]
@@ -47,7 +66,7 @@ pub fn triggers(setup: &Setup, st: &State, count: u64) -> bool {
 /// phase times go to `timers`.
 pub fn sync_step(
     setup: &Setup,
-    annihilation: &mut Annihilation,
+    buffers: &mut StepBuffers,
     st: &mut State,
     comm: &dyn Comm,
     timers: &mut Timers,
@@ -55,17 +74,18 @@ pub fn sync_step(
     let g = setup.groups as usize;
     let local_start = st.store.len();
     let t0 = Instant::now();
-    let tally = flight::advance_in_place(setup, &mut st.store, st.step);
+    let tally = buffers
+        .advancer
+        .advance_in_place(setup, &mut st.store, st.step);
     st.step += 1;
     timers.add(Phase::Advance, t0);
     let t0 = Instant::now();
-    let mut t = [
-        tally.absorbed_left.clone(),
-        tally.absorbed_right.clone(),
-        vec![tally.events as i64, st.store.len() as i64],
-    ]
-    .concat();
-    comm.sum_i64(&mut t);
+    let t = &mut buffers.sums;
+    t.clear();
+    t.extend_from_slice(&tally.absorbed_left);
+    t.extend_from_slice(&tally.absorbed_right);
+    t.extend_from_slice(&[tally.events as i64, st.store.len() as i64]);
+    comm.sum_i64(t);
     for i in 0..g {
         st.gone.left[i] += t[i];
         st.gone.right[i] += t[g + i];
@@ -85,7 +105,9 @@ pub fn sync_step(
         };
     }
     let t0 = Instant::now();
-    let pass = annihilation.run(setup, &mut st.store, st.step, comm);
+    let pass = buffers
+        .annihilation
+        .run(setup, &mut st.store, st.step, comm);
     let report = pass.report;
     timers.add_secs(Phase::Binning, report.binning_s);
     timers.add_secs(Phase::Reduction, report.reduction_s);

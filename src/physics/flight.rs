@@ -32,6 +32,15 @@ pub struct Tally {
 }
 
 impl Tally {
+    /// Zero counts for `groups` groups, keeping the buffers.
+    pub fn reset(&mut self, groups: usize) {
+        self.absorbed_left.clear();
+        self.absorbed_left.resize(groups, 0);
+        self.absorbed_right.clear();
+        self.absorbed_right.resize(groups, 0);
+        self.events = 0;
+        self.candidates = 0;
+    }
     pub fn new(groups: usize) -> Self {
         Tally {
             absorbed_left: vec![0; groups],
@@ -274,73 +283,126 @@ fn slot(chunk: usize, p: usize) -> usize {
     chunk * CHUNK + p
 }
 
-/// Advance every particle of `store` through synchronisation interval `interval`
-/// (from t = interval·dt to (interval + 1)·dt), in place: survivors keep their slot (the
-/// store is compacted only when some left), children are appended. Returns the tallies.
-pub fn advance_in_place(setup: &Setup, store: &mut Store, interval: u64) -> Tally {
-    let n = setup.n;
-    let groups = setup.groups as usize;
-    let free = setup.one_body.force.is_zero();
-    let parts: Vec<(Store, Vec<usize>, Tally)> = store
-        .x
-        .par_chunks_mut(CHUNK * n)
-        .zip(store.k.par_chunks_mut(CHUNK * n))
-        .zip(store.id.par_chunks(CHUNK))
-        .zip(store.sign.par_chunks(CHUNK))
-        .enumerate()
-        .map(|(c, (((xs, ks), ids), signs))| {
-            let mut children = Store::new(n);
-            let mut gone = Vec::new();
-            let mut tally = Tally::new(groups);
-            let mut stack = Vec::new();
-            // One start record, overwritten per particle (entries beyond n stay 0).
-            let mut start = Flying {
-                x: [0.0; MAX_N],
-                k: [0.0; MAX_N],
-                id: 0,
-                sign: 0,
-                tau: 0.0,
-            };
-            for p in 0..ids.len() {
-                start.x[..n].copy_from_slice(&xs[p * n..(p + 1) * n]);
-                start.k[..n].copy_from_slice(&ks[p * n..(p + 1) * n]);
-                start.id = ids[p];
-                start.sign = signs[p];
-                start.tau = 0.0;
-                let (s, o, t, st) = (&mut start, &mut children, &mut tally, &mut stack);
-                let alive = if free {
-                    fly::<true>(setup, interval, s, o, t, st)
-                } else {
-                    fly::<false>(setup, interval, s, o, t, st)
+/// The buffers of one parallel task of the advance, kept from one step to the next.
+struct Task {
+    children: Store,
+    gone: Vec<usize>,
+    tally: Tally,
+    stack: Vec<Flying>,
+}
+
+/// The buffers of the advance, kept for a whole run so that a step allocates only while
+/// its particle count still grows (tests/allocations.rs).
+#[derive(Default)]
+pub struct Advancer {
+    tasks: Vec<Task>,
+    keep: Vec<bool>,
+    tally: Tally,
+}
+
+impl Advancer {
+    /// Advance every particle of `store` through synchronisation interval `interval`
+    /// (from t = interval·dt to (interval + 1)·dt), in place: survivors keep their slot
+    /// (the store is compacted only when some left), children are appended. Returns the
+    /// tallies of the interval.
+    pub fn advance_in_place(&mut self, setup: &Setup, store: &mut Store, interval: u64) -> &Tally {
+        let n = setup.n;
+        let groups = setup.groups as usize;
+        let free = setup.one_body.force.is_zero();
+        let chunks = store.len().div_ceil(CHUNK);
+        if self.tasks.len() < chunks {
+            self.tasks.resize_with(chunks, || Task {
+                children: Store::new(n),
+                gone: Vec::new(),
+                tally: Tally::new(groups),
+                stack: Vec::new(),
+            });
+        }
+        // Tasks are alike: each gets the room the roomiest one has, so that a task's buffers
+        // reallocate only when some task passes the largest count yet (then all grow once).
+        let room = self
+            .tasks
+            .iter()
+            .map(|t| (t.children.capacity(), t.gone.capacity(), t.stack.capacity()))
+            .fold((0, 0, 0), |a, b| (a.0.max(b.0), a.1.max(b.1), a.2.max(b.2)));
+        for t in &mut self.tasks {
+            t.children.truncate(0);
+            t.children.reserve(room.0);
+            t.gone.clear();
+            t.gone.reserve(room.1);
+            t.stack.reserve(room.2);
+        }
+        store
+            .x
+            .par_chunks_mut(CHUNK * n)
+            .zip(store.k.par_chunks_mut(CHUNK * n))
+            .zip(store.id.par_chunks(CHUNK))
+            .zip(store.sign.par_chunks(CHUNK))
+            .zip(self.tasks[..chunks].par_iter_mut())
+            .enumerate()
+            .for_each(|(c, ((((xs, ks), ids), signs), task))| {
+                task.tally.reset(groups);
+                // One start record, overwritten per particle (entries beyond n stay 0).
+                let mut start = Flying {
+                    x: [0.0; MAX_N],
+                    k: [0.0; MAX_N],
+                    id: 0,
+                    sign: 0,
+                    tau: 0.0,
                 };
-                if alive {
-                    xs[p * n..(p + 1) * n].copy_from_slice(&start.x[..n]);
-                    ks[p * n..(p + 1) * n].copy_from_slice(&start.k[..n]);
-                } else {
-                    gone.push(slot(c, p));
+                for p in 0..ids.len() {
+                    start.x[..n].copy_from_slice(&xs[p * n..(p + 1) * n]);
+                    start.k[..n].copy_from_slice(&ks[p * n..(p + 1) * n]);
+                    start.id = ids[p];
+                    start.sign = signs[p];
+                    start.tau = 0.0;
+                    let Task {
+                        children,
+                        tally,
+                        stack,
+                        ..
+                    } = task;
+                    let alive = if free {
+                        fly::<true>(setup, interval, &mut start, children, tally, stack)
+                    } else {
+                        fly::<false>(setup, interval, &mut start, children, tally, stack)
+                    };
+                    if alive {
+                        xs[p * n..(p + 1) * n].copy_from_slice(&start.x[..n]);
+                        ks[p * n..(p + 1) * n].copy_from_slice(&start.k[..n]);
+                    } else {
+                        task.gone.push(slot(c, p));
+                    }
+                }
+            });
+        let tasks = &mut self.tasks[..chunks];
+        self.tally.reset(groups);
+        if tasks.iter().any(|t| !t.gone.is_empty()) {
+            self.keep.clear();
+            self.keep.resize(store.len(), true);
+            for t in tasks.iter() {
+                for &p in &t.gone {
+                    self.keep[p] = false;
                 }
             }
-            (children, gone, tally)
-        })
-        .collect();
-    let mut tally = Tally::new(groups);
-    let any_gone = parts.iter().any(|(_, g, _)| !g.is_empty());
-    if any_gone {
-        let mut keep = vec![true; store.len()];
-        for (_, g, _) in &parts {
-            for &p in g {
-                keep[p] = false;
-            }
+            store.retain(&self.keep);
         }
-        store.retain(&keep);
+        let extra: usize = tasks.iter().map(|t| t.children.len()).sum();
+        store.reserve(extra);
+        for t in tasks.iter_mut() {
+            store.append(&mut t.children);
+            self.tally.add(&t.tally);
+        }
+        &self.tally
     }
-    let extra: usize = parts.iter().map(|(c, _, _)| c.len()).sum();
-    store.reserve(extra);
-    for (mut c, _, t) in parts {
-        store.append(&mut c);
-        tally.add(&t);
-    }
-    tally
+}
+
+/// Advance every particle of `store` through synchronisation interval `interval` with
+/// fresh buffers (see [`Advancer::advance_in_place`]; a run keeps one [`Advancer`]).
+pub fn advance_in_place(setup: &Setup, store: &mut Store, interval: u64) -> Tally {
+    Advancer::default()
+        .advance_in_place(setup, store, interval)
+        .clone()
 }
 
 /// [`advance_in_place`] on a copy: the survivors and the tallies.

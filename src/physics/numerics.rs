@@ -398,9 +398,8 @@ impl Setup {
         if !self.stats.identical() || self.orbitals.len() < 2 {
             return None;
         }
-        let c: Vec<f64> = self.orbitals.iter().map(|o| o.x0).collect();
-        let d = c.iter().cloned().fold(f64::NEG_INFINITY, f64::max)
-            - c.iter().cloned().fold(f64::INFINITY, f64::min);
+        let c = self.orbitals.iter().map(|o| o.x0);
+        let d = c.clone().fold(f64::NEG_INFINITY, f64::max) - c.fold(f64::INFINITY, f64::min);
         (d > 0.0).then(|| 2.0 * std::f64::consts::PI / d)
     }
 

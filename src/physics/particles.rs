@@ -44,6 +44,15 @@ impl Store {
         self.id.len()
     }
 
+    /// Particles the store holds without reallocating (the least over its vectors).
+    pub fn capacity(&self) -> usize {
+        let n = self.n.max(1);
+        (self.x.capacity() / n)
+            .min(self.k.capacity() / n)
+            .min(self.id.capacity())
+            .min(self.sign.capacity())
+    }
+
     pub fn is_empty(&self) -> bool {
         self.id.is_empty()
     }

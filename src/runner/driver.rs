@@ -7,7 +7,7 @@ use crate::engine::memory;
 use crate::engine::observe;
 use crate::engine::start::initial_state;
 use crate::engine::state::State;
-use crate::engine::step::{Annihilated, sync_step};
+use crate::engine::step::{Annihilated, StepBuffers, sync_step};
 use crate::engine::stop::stop_requested;
 use crate::engine::timers::{Phase, Timers};
 use crate::io::checkpoint;
@@ -229,7 +229,7 @@ fn drive(
     let root = comm.is_root();
     let t0 = Instant::now();
     // The cell hierarchy and annihilation buffers, kept from one pass to the next.
-    let mut annihilation = Annihilation::new(setup)?;
+    let mut buffers = StepBuffers::new(setup)?;
     timers.add(Phase::Initial, t0);
     // Most merging the budget has forced so far (warned when it grows).
     let mut forced_threshold = 0.0f64;
@@ -309,7 +309,7 @@ fn drive(
     let mut cells_per_particle = 1.0;
     while st.step < stop_step {
         let step_started = Instant::now();
-        let step = sync_step(setup, &mut annihilation, &mut st, comm, &mut timers);
+        let step = sync_step(setup, &mut buffers, &mut st, comm, &mut timers);
         events += step.events;
         let count = step.count;
         let t0 = Instant::now();
@@ -333,12 +333,12 @@ fn drive(
             // validation suite every such job was biased at the default budget; said once.
             if setup.n >= 2 && pass.coarsest_level > 0 && !warned_binding {
                 warned_binding = true;
-                said.push(binding_warning(setup, &annihilation, pass, t));
+                said.push(binding_warning(setup, &buffers.annihilation, pass, t));
             }
             if pass.forced && worse {
                 forced_level = forced_level.max(pass.coarsest_level);
                 forced_threshold = forced_threshold.max(pass.threshold);
-                said.push(forced_warning(setup, &annihilation, pass, t));
+                said.push(forced_warning(setup, &buffers.annihilation, pass, t));
             }
             if root {
                 for w in said {
@@ -350,7 +350,7 @@ fn drive(
             cells.push(rep.local_cells as f64);
             if root {
                 let rec = &mut out.records;
-                let (cx, ck) = annihilation.cell_sizes(pass.coarsest_level);
+                let (cx, ck) = buffers.annihilation.cell_sizes(pass.coarsest_level);
                 for (d, v) in [
                     (names::ANNIHILATION_LEVEL, pass.mean_level),
                     (
