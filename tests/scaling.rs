@@ -211,6 +211,23 @@ fn phase_times_account_for_each_ranks_wall_time() {
             "{name} positive on every rank: {v:?}"
         );
     }
+    // Placement (docs/method.md §3): a pass at the finest cells sends the particles to
+    // their home ranks and nothing else, since every finest cell is then whole on one rank
+    // (two ranks: one message per rank and pass).
+    let coarsest = &f.records["annihilation_coarsest_level"].1;
+    let messages = get("messages_sent");
+    let finest: Vec<usize> = (0..passes).filter(|&a| coarsest[a] == 0.0).collect();
+    assert!(
+        !finest.is_empty(),
+        "some pass at the finest cells: {coarsest:?}"
+    );
+    for a in finest {
+        assert_eq!(
+            &messages[2 * a..2 * a + 2],
+            &[1.0, 1.0],
+            "pass {a}: only the placement is sent"
+        );
+    }
 }
 
 /// Shell words of a line, with quoted strings kept whole (enough for the templates).

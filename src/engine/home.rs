@@ -50,7 +50,7 @@ pub fn home_of(mesh: &CellMesh, store: &Store, p: usize, ranks: usize) -> usize 
 pub struct Moved {
     /// Particles sent to other ranks.
     pub particles: u64,
-    /// 64-bit words sent to other ranks and the number of ranks sent a message.
+    /// 64-bit words and point-to-point messages sent to other ranks ([`Comm::sent`]).
     pub words: u64,
     pub messages: u64,
 }
