@@ -737,13 +737,14 @@ fn resume_refuses_tables_that_differ_from_the_checkpoint() {
 /// The MPI exchange splits each message into pieces of at most
 /// SIGNFOLD_EXCHANGE_CHUNK_WORDS words (for 64-bit lengths beyond MPI's 32-bit counts); with
 /// a limit of 61 words every annihilation pass sends many pieces, and 2 and 3 ranks still
-/// give the one-rank datasets bit for bit.
+/// give the one-rank datasets bit for bit, with exchanges sent directly and routed
+/// (`SIGNFOLD_ROUTE_BELOW_WORDS` 0 and huge: on 3 ranks routing forwards messages).
 #[test]
 fn chunked_exchanges_give_identical_results() {
     let dir = tempfile::tempdir().unwrap();
     let job = demo("barrier-packet.toml");
-    let run = |ranks: usize| {
-        let out = dir.path().join(format!("np{ranks}"));
+    let run = |ranks: usize, route_below: &str| {
+        let out = dir.path().join(format!("np{ranks}-{route_below}"));
         let mut cmd = std::process::Command::new("mpirun");
         cmd.args(["-np", &ranks.to_string(), "--oversubscribe", bin()])
             .args(["run", job.to_str().unwrap(), "--out", out.to_str().unwrap()])
@@ -751,6 +752,7 @@ fn chunked_exchanges_give_identical_results() {
             .args(["--set", "numerics.end_time=30"])
             .args(["--set", "annihilation.trigger=1.5"])
             .env(signfold::engine::mpi::CHUNK_ENV, "61")
+            .env(signfold::engine::mpi::ROUTE_ENV, route_below)
             .env("OMPI_ALLOW_RUN_AS_ROOT", "1")
             .env("OMPI_ALLOW_RUN_AS_ROOT_CONFIRM", "1");
         let child = {
@@ -763,13 +765,13 @@ fn chunked_exchanges_give_identical_results() {
         ok(&child.wait_with_output().unwrap());
         signfold::io::results::ResultFile::read(&out.join("observables.h5")).unwrap()
     };
-    let base = run(1);
+    let base = run(1, "0");
     assert!(
         base.records["annihilation_time"].1.len() >= 3,
         "the test must exercise annihilation"
     );
-    for ranks in [2, 3] {
-        let other = run(ranks);
+    for (ranks, route_below) in [(2, "0"), (3, "0"), (3, "1000000000")] {
+        let other = run(ranks, route_below);
         // The largest message of a pass is at least its words / (messages per pass), which
         // must fill ten 61-word pieces.
         let most = |name: &str| other.run[name].1.iter().cloned().fold(0.0, f64::max);
@@ -778,6 +780,15 @@ fn chunked_exchanges_give_identical_results() {
             bytes / 8.0 / messages.max(1.0) > 10.0 * 61.0,
             "at least ten pieces in the largest message ({bytes} B in {messages} messages)"
         );
-        assert_same_datasets(&base, &other, &format!("{ranks} ranks, 61-word pieces"));
+        let how = if route_below == "0" {
+            "direct"
+        } else {
+            "routed"
+        };
+        assert_same_datasets(
+            &base,
+            &other,
+            &format!("{ranks} ranks {how}, 61-word pieces"),
+        );
     }
 }
