@@ -11,7 +11,7 @@
 use crate::config::job::Resolution;
 use crate::engine::annihilate::{Annihilator, Cells, Report};
 use crate::engine::comm::Comm;
-use crate::engine::home::{self, Moved};
+use crate::engine::home;
 use crate::engine::resolution::{self, LADDER, Z_STRUCTURE};
 use crate::physics::cells::{CellMesh, MAX_LEVEL};
 use crate::physics::numerics::Setup;
@@ -36,9 +36,6 @@ pub struct Pass {
     /// Share of the samples in cells holding both signs that were annihilated in cells
     /// coarser than the structure scales (`Setup::scale_level`).
     pub beyond_scales: f64,
-    /// What this rank sent to place its particles in their home cells before the pass
-    /// (its wall seconds are in the report's reduction time).
-    pub moved: Moved,
 }
 
 /// The cell hierarchy and the buffers of annihilation, kept for the whole run.
@@ -63,7 +60,9 @@ impl Annihilation {
     }
 
     /// Place the particles in their home cells ([`home::migrate`]), then annihilate
-    /// `store` in place (`interval` keys the survivor priorities).
+    /// `store` in place (`interval` keys the survivor priorities). The report's words and
+    /// messages are all this rank sent in the call, placement included; the placement's
+    /// wall seconds are in its reduction time.
     pub fn run(
         &mut self,
         setup: &Setup,
@@ -71,11 +70,14 @@ impl Annihilation {
         interval: u64,
         comm: &dyn Comm,
     ) -> Pass {
+        let sent_before = comm.sent();
         let t0 = std::time::Instant::now();
-        let moved = home::migrate(&self.mesh, store, comm);
+        home::migrate(&self.mesh, store, comm);
         let placing_s = t0.elapsed().as_secs_f64();
         let mut pass = self.annihilate(setup, store, interval, comm);
-        pass.moved = moved;
+        let sent = comm.sent() - sent_before;
+        pass.report.words_sent = sent.words;
+        pass.report.messages_sent = sent.messages;
         pass.report.reduction_s += placing_s;
         pass
     }
@@ -95,8 +97,6 @@ impl Annihilation {
                 let mut report = self.annihilator.run(setup, cells, store, interval, comm);
                 debug_assert_eq!(report.after, out.after, "the tree's count is exact");
                 report.binning_s += out.seconds;
-                report.words_sent += out.traffic.words;
-                report.messages_sent += out.traffic.messages;
                 let mixed: u64 = out.mixed_by_level.iter().sum();
                 let beyond: u64 = out.mixed_by_level
                     [(setup.scale_level(crate::physics::cells::MAX_LEVEL) as usize + 1)..]
@@ -113,7 +113,6 @@ impl Annihilation {
                     coarsest_level: out.coarsest_level(),
                     threshold: LADDER[out.rung].1,
                     forced: LADDER[out.rung].1 > Z_STRUCTURE,
-                    moved: Moved::default(),
                 }
             }
             Resolution::Fixed => {
@@ -126,8 +125,6 @@ impl Annihilation {
                     let r = a.run(setup, Cells::Level(mesh, level), store, interval, comm);
                     total.after = r.after;
                     total.local_cells = r.local_cells;
-                    total.words_sent += r.words_sent;
-                    total.messages_sent += r.messages_sent;
                     total.binning_s += r.binning_s;
                     total.reduction_s += r.reduction_s;
                     total.selection_s += r.selection_s;
@@ -143,7 +140,6 @@ impl Annihilation {
                     coarsest_level: level,
                     threshold: f64::NAN,
                     forced: level > 0,
-                    moved: Moved::default(),
                 }
             }
         }

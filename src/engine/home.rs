@@ -45,44 +45,26 @@ pub fn home_of(mesh: &CellMesh, store: &Store, p: usize, ranks: usize) -> usize 
     )
 }
 
-/// What one migration moved, on this rank.
-#[derive(Clone, Copy, Debug, Default, PartialEq)]
-pub struct Moved {
-    /// Particles sent to other ranks.
-    pub particles: u64,
-    /// 64-bit words and point-to-point messages sent to other ranks ([`Comm::sent`]).
-    pub words: u64,
-    pub messages: u64,
-}
-
 /// Move every particle to the owner of its home cell (one personalised exchange). The
 /// particles that stay keep their order; arrivals are appended in the order of their
 /// sending rank.
-pub fn migrate(mesh: &CellMesh, store: &mut Store, comm: &dyn Comm) -> Moved {
+pub fn migrate(mesh: &CellMesh, store: &mut Store, comm: &dyn Comm) {
     let ranks = comm.size();
     if ranks == 1 {
-        return Moved::default();
+        return;
     }
     let me = comm.rank();
     let mut send = vec![Vec::new(); ranks];
     let mut keep = vec![true; store.len()];
-    let mut moved = Moved::default();
     for (p, stay) in keep.iter_mut().enumerate() {
         let r = home_of(mesh, store, p, ranks);
         if r != me {
             store.pack(p, p + 1, &mut send[r]);
             *stay = false;
-            moved.particles += 1;
         }
     }
     store.retain(&keep);
-    let sent_before = comm.sent();
-    let recv = comm.exchange(&send);
-    let traffic = comm.sent() - sent_before;
-    moved.words = traffic.words;
-    moved.messages = traffic.messages;
-    for msg in &recv {
+    for msg in &comm.exchange(&send) {
         store.unpack(msg);
     }
-    moved
 }

@@ -27,7 +27,7 @@
 //! in fixed point), so the leaves are the same on any number of ranks and threads.
 
 use crate::engine::cell_table::CellTable;
-use crate::engine::comm::{Comm, Traffic};
+use crate::engine::comm::Comm;
 use crate::engine::home;
 use crate::engine::owners::Owners;
 use crate::physics::cells::{CellMesh, MAX_LEVEL};
@@ -75,8 +75,7 @@ pub struct Outcome {
     pub after: u64,
     /// Samples in leaves holding both signs, by the leaf's level 0..=MAX_LEVEL.
     pub mixed_by_level: [u64; LEVELS],
-    /// What this rank sent to others, and its wall seconds.
-    pub traffic: Traffic,
+    /// Wall seconds of this rank.
     pub seconds: f64,
 }
 
@@ -285,7 +284,6 @@ impl Resolution {
         //    every leaf is a finest cell — the tree's own answer. The particles sit in their
         //    home cells (`engine::home`), which contain their finest cells, so each finest
         //    cell is whole on one rank and its local counts are its global counts.
-        let sent_before = comm.sent();
         let levels = &mut self.levels;
         levels.clear();
         let mut counts = [0i64; RUNGS * (1 + LEVELS)];
@@ -353,7 +351,6 @@ impl Resolution {
             rung,
             after: counts[rung] as u64,
             mixed_by_level,
-            traffic: comm.sent() - sent_before,
             seconds: t0.elapsed().as_secs_f64(),
         }
     }

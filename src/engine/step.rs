@@ -1,7 +1,7 @@
 //! One synchronisation step of a run (docs/method.md §2.4, §3): advance every particle,
 //! sum the global counts, and, when the trigger says so, place the particles in their home
-//! cells and annihilate within the budget. The run's driver and the `check` pilot both call [`sync_step`], so the pilot
-//! forecasts exactly what a run does.
+//! cells and annihilate within the budget. The run's driver and the `check` pilot both call
+//! [`sync_step`], so the pilot forecasts exactly what a run does.
 
 use crate::engine::budget::{Annihilation, Pass};
 use crate::engine::comm::Comm;

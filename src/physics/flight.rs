@@ -42,12 +42,9 @@ impl Tally {
         self.candidates = 0;
     }
     pub fn new(groups: usize) -> Self {
-        Tally {
-            absorbed_left: vec![0; groups],
-            absorbed_right: vec![0; groups],
-            events: 0,
-            candidates: 0,
-        }
+        let mut t = Tally::default();
+        t.reset(groups);
+        t
     }
     pub fn add(&mut self, o: &Tally) {
         for (a, b) in self.absorbed_left.iter_mut().zip(&o.absorbed_left) {

@@ -345,8 +345,8 @@ fn drive(
                     progress(Progress::Warning(w));
                 }
             }
-            bytes_sent.push(8.0 * (rep.words_sent + pass.moved.words) as f64);
-            messages_sent.push((rep.messages_sent + pass.moved.messages) as f64);
+            bytes_sent.push(8.0 * rep.words_sent as f64);
+            messages_sent.push(rep.messages_sent as f64);
             cells.push(rep.local_cells as f64);
             if root {
                 let rec = &mut out.records;
