@@ -28,15 +28,18 @@ pub struct World {
     route_below: i64,
 }
 
+/// A non-negative integer from the environment variable `name`, when it holds one.
+fn env_count(name: &str) -> Option<u64> {
+    std::env::var(name).ok()?.trim().parse().ok()
+}
+
 impl World {
     /// The world communicator; the exchange chunk from [`CHUNK_ENV`] when set (a positive
     /// integer), else the 32-bit limit.
     pub fn new(world: SimpleCommunicator) -> Self {
-        let chunk = std::env::var(CHUNK_ENV)
-            .ok()
-            .and_then(|v| v.trim().parse::<usize>().ok())
+        let chunk = env_count(CHUNK_ENV)
             .filter(|&c| c > 0)
-            .unwrap_or(i32::MAX as usize);
+            .map_or(i32::MAX as usize, |c| c as usize);
         World::with_chunk(world, chunk)
     }
 
@@ -46,11 +49,9 @@ impl World {
             world,
             chunk_words: chunk_words.clamp(1, i32::MAX as usize),
             sent: Cell::new(Traffic::default()),
-            route_below: std::env::var(ROUTE_ENV)
-                .ok()
-                .and_then(|v| v.trim().parse::<i64>().ok())
-                .filter(|&w| w >= 0)
-                .unwrap_or(crate::engine::comm::ROUTE_BELOW_WORDS),
+            route_below: env_count(ROUTE_ENV).map_or(crate::engine::comm::ROUTE_BELOW_WORDS, |w| {
+                i64::try_from(w).unwrap_or(i64::MAX)
+            }),
         }
     }
 
